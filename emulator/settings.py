@@ -1,0 +1,32 @@
+"""Settings of emulation and prediction, with their defaults."""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+
+@dataclass(frozen=True)
+class EmulatorSettings:
+    """How the pathway emulator is built (see ../shared/DESIGN.md, Emulator)."""
+
+    scenario: str | None = None  # experiment id of the target scenario; None: the only one present
+    inputs: tuple[str, ...] = ("ecs_eff",)  # sensitivity-table columns used as GP inputs
+    forcing_source: str = "diagnosed"  # "diagnosed" (from the ensemble) | "co2" | "file"
+    forcing_file: str | None = None  # CSV or NetCDF with a year column, for forcing_source = "file"
+    co2_file: str | None = None  # CO2 concentrations (ppm) by year, for forcing_source = "co2"
+    variance_kept: float = 0.99  # fraction of residual variance the principal components keep
+    max_components: int = 10
+    kernel: str = "matern52"  # "matern52" | "rbf"
+    internal_variability: bool = True
+    physics_mean: bool = True
+    random_state: int = 0
+
+
+@dataclass(frozen=True)
+class PredictionSettings:
+    """What to predict and how to summarise it."""
+
+    cases: tuple[dict, ...] = ()  # each {"name": str, inputs...}
+    thresholds: tuple[float, ...] = (1.5, 2.0)  # K, for crossing years
+    quantiles: tuple[float, ...] = (0.05, 0.17, 0.50, 0.83, 0.95)
+    n_samples: int = 2000
+    random_state: int = 0

@@ -1,0 +1,195 @@
+"""Area weighting: cell areas of a grid and lazy global means over it."""
+from __future__ import annotations
+
+import numpy as np
+import xarray as xr
+
+from .errors import ArchiveError
+
+# mean radius of the Earth (IUGG mean radius R1 = 6 371.0088 km, rounded as is customary)
+EARTH_RADIUS_M = 6_371_000.0
+
+_AREA_UNITS = {"m2", "m^2", "m**2", "m 2", "m-2 m4", "square_meters", "square_metres"}
+
+
+def find_lat_lon(obj: xr.Dataset | xr.DataArray) -> tuple[str, str]:
+    """Names of the latitude and longitude coordinates (by CF standard_name, units or name)."""
+
+    def find(kind: str, units: set[str], names: tuple[str, ...]) -> str | None:
+        for name, coord in obj.coords.items():
+            if coord.attrs.get("standard_name") == kind:
+                return str(name)
+        for name, coord in obj.coords.items():
+            if coord.attrs.get("units") in units:
+                return str(name)
+        for name in names:
+            if name in obj.coords:
+                return name
+        return None
+
+    lat = find("latitude", {"degrees_north", "degree_north", "degree_N", "degrees_N", "degreeN"}, ("lat", "latitude"))
+    lon = find("longitude", {"degrees_east", "degree_east", "degree_E", "degrees_E", "degreeE"}, ("lon", "longitude"))
+    if lat is None or lon is None:
+        raise ArchiveError("no latitude/longitude coordinates found", hint="the file must carry CF lat/lon coordinates")
+    return lat, lon
+
+
+def _bounds(ds: xr.Dataset, coord: str) -> xr.DataArray | None:
+    """The cell bounds of a coordinate: the variable named by its ``bounds`` attribute, else ``<coord>_bnds``."""
+    names = [ds[coord].attrs.get("bounds"), ds[coord].encoding.get("bounds"), f"{coord}_bnds", f"{coord}_bounds"]
+    for name in names:
+        if name and name in ds.variables:
+            b = ds[name]
+            if b.ndim == 2 and coord in b.dims:
+                extra = [d for d in b.dims if d != coord][0]
+                return b.transpose(coord, extra)
+    return None
+
+
+def area_weights(
+    ds: xr.Dataset | xr.DataArray, areacella: xr.DataArray | None = None
+) -> tuple[xr.DataArray, str | None]:
+    """Weights for a global mean over the horizontal grid of ``ds``.
+
+    In order of preference:
+
+    1. ``areacella`` (units m2, same grid as ``ds``);
+    2. cell areas from the latitude and longitude bounds, on a sphere of radius
+       `EARTH_RADIUS_M`: area = R² · |sin φ₂ − sin φ₁| · |λ₂ − λ₁| (exact for a cell
+       bounded by two parallels and two meridians);
+    3. cos φ at the cell centres, returned with the flag ``"cos_weights"``.
+
+    Parameters
+    ----------
+    ds : Dataset or DataArray
+        Holds the lat/lon coordinates (and, for a Dataset, their bounds).
+    areacella : DataArray, optional
+        Cell areas.
+
+    Returns
+    -------
+    weights : DataArray
+        On the horizontal dims of ``ds``; ``attrs["weight_source"]`` says where they came from,
+        ``units`` is ``m2`` for real areas and ``1`` for cos φ.
+    flag : str or None
+        A quality flag when the weights are a fallback.
+
+    Raises
+    ------
+    ArchiveError
+        When ``areacella`` has other units, another grid or unusable values.
+    """
+    lat, lon = find_lat_lon(ds)
+    if areacella is not None:
+        return _from_areacella(ds, areacella, lat, lon), None
+
+    if isinstance(ds, xr.Dataset):
+        lat_b = _bounds(ds, lat)
+        lon_b = _bounds(ds, lon)
+        if lat_b is not None and ds[lat].ndim == 1 and ds[lon].ndim == 1:
+            flag = None
+            phi = np.deg2rad(np.clip(lat_b.values.astype(np.float64), -90.0, 90.0))
+            band = np.abs(np.sin(phi[:, 1]) - np.sin(phi[:, 0]))
+            if lon_b is not None:
+                width = _lon_widths(lon_b.values.astype(np.float64))
+            else:
+                width = _lon_widths_from_centres(ds[lon].values.astype(np.float64))
+                flag = "lon_bounds_derived"
+            area = EARTH_RADIUS_M**2 * np.outer(band, np.deg2rad(width))
+            weights = xr.DataArray(
+                area,
+                dims=(lat, lon),
+                coords={lat: ds[lat], lon: ds[lon]},
+                name="cell_area",
+                attrs={"units": "m2", "weight_source": "lat_lon_bounds"},
+            )
+            return weights, flag
+
+    cos = np.cos(np.deg2rad(ds[lat].astype(np.float64))).clip(min=0.0)
+    weights = (cos * xr.ones_like(ds[lon], dtype=np.float64)).rename("cell_weight")
+    weights.attrs = {"units": "1", "weight_source": "cos_lat"}
+    return weights, "cos_weights"
+
+
+def _lon_widths(bounds: np.ndarray) -> np.ndarray:
+    width = np.mod(bounds[:, 1] - bounds[:, 0], 360.0)
+    # a cell spanning the whole circle has equal bounds modulo 360
+    whole = (width == 0.0) & (bounds[:, 1] != bounds[:, 0])
+    return np.where(whole, 360.0, width)
+
+
+def _lon_widths_from_centres(centres: np.ndarray) -> np.ndarray:
+    # edges halfway between centres, the grid taken as periodic
+    if centres.size == 1:
+        return np.array([360.0])
+    ordered = np.sort(np.mod(centres, 360.0))
+    gaps = np.diff(np.concatenate([ordered, ordered[:1] + 360.0]))
+    edges_width = 0.5 * (gaps + np.roll(gaps, 1))
+    order = np.argsort(np.argsort(np.mod(centres, 360.0)))
+    return edges_width[order]
+
+
+def _from_areacella(ds, areacella: xr.DataArray, lat: str, lon: str) -> xr.DataArray:
+    units = str(areacella.attrs.get("units", "")).strip()
+    if units not in _AREA_UNITS:
+        raise ArchiveError(
+            f"areacella units are {units!r}, not m2", hint="give cell areas in m2 (CF units 'm2') or remove the file"
+        )
+    spatial = [d for d in (ds[lat].dims + ds[lon].dims) if d in ds.dims]
+    spatial = list(dict.fromkeys(spatial))
+    if set(areacella.dims) != set(spatial):
+        raise ArchiveError(
+            f"areacella dims {tuple(areacella.dims)} are not the grid's {tuple(spatial)}",
+            hint="use cell areas of the same grid (grid_label) as the variables",
+        )
+    for dim in spatial:
+        if areacella.sizes[dim] != ds.sizes[dim]:
+            raise ArchiveError(
+                f"areacella has {areacella.sizes[dim]} points along {dim}, the variables {ds.sizes[dim]}",
+                hint="use cell areas of the same grid (grid_label) as the variables",
+            )
+    for name in (lat, lon):
+        if name in areacella.coords:
+            mine, theirs = np.asarray(areacella[name].values, float), np.asarray(ds[name].values, float)
+            if mine.shape != theirs.shape or not np.allclose(mine, theirs, atol=1e-4):
+                raise ArchiveError(
+                    f"areacella {name} coordinates differ from the variables'",
+                    hint="use cell areas of the same grid (grid_label) as the variables",
+                )
+    values = areacella.astype(np.float64).transpose(*spatial)
+    data = np.asarray(values.values)
+    if not np.all(np.isfinite(data)) or np.any(data < 0) or not np.any(data > 0):
+        raise ArchiveError(
+            "areacella has missing, negative or only zero cell areas", hint="replace the cell-area file"
+        )
+    weights = xr.DataArray(data, dims=spatial, name="cell_area", attrs={"units": "m2", "weight_source": "areacella"})
+    return weights.assign_coords({c: ds[c] for c in (lat, lon) if set(ds[c].dims) <= set(spatial)})
+
+
+def global_mean(da: xr.DataArray, weights: xr.DataArray) -> xr.DataArray:
+    """Area-weighted mean over the horizontal dims of ``weights``, lazily.
+
+    ``sum(w·x) / sum(w)`` with both sums over the cells where ``x`` is present, so missing
+    (NaN or decoded fill-value) cells drop out of numerator and denominator alike. Sums
+    accumulate in float64. On a dask array nothing is computed: both sums are reductions of
+    the same chunks, so one ``dask.compute`` reads each chunk once.
+
+    Returns a DataArray over the remaining dims (usually ``time``) with the attributes of
+    ``da`` and ``"area: mean"`` appended to ``cell_methods``. A time step with no valid cell is NaN.
+    """
+    dims = list(weights.dims)
+    missing = [d for d in dims if d not in da.dims]
+    if missing:
+        raise ArchiveError(f"variable {da.name} lacks the grid dims {missing}")
+    values = da.astype(np.float64)
+    present = values.notnull()
+    w = weights.astype(np.float64).drop_vars([c for c in weights.coords if c not in weights.dims])
+    # align on position: the weights were checked to be on this grid
+    w = w.assign_coords({d: values[d] for d in dims if d in values.coords})
+    numerator = (values.fillna(0.0) * w).sum(dims)
+    denominator = (present * w).sum(dims)
+    mean = (numerator / denominator.where(denominator > 0)).rename(da.name)
+    mean.attrs = dict(da.attrs)
+    methods = str(da.attrs.get("cell_methods", "")).strip()
+    mean.attrs["cell_methods"] = f"{methods} area: mean".strip()
+    return mean

@@ -1,0 +1,290 @@
+"""The control run: where an experiment branches from it, and its drift removed from the experiment.
+
+Experiments are compared with the part of the control that runs alongside them (the "parallel
+segment"), so that a slow drift of the control climate is not mistaken for a response. The drift is
+a polynomial in time (linear by default, quadratic on request) fitted to each control variable over
+the parallel segment and subtracted from the experiment year by year.
+
+All functions take and return annual series as described in DEVELOPERS.md ("Annual global-mean
+series of one run"): Datasets with dimension ``year``. Outputs count ``year`` from 1 at the branch
+and carry the run's own calendar year as coordinate ``calendar_year``.
+"""
+from __future__ import annotations
+
+import datetime
+import math
+from collections.abc import Mapping
+
+import cftime
+import numpy as np
+import xarray as xr
+
+BRANCH_ASSUMED = "branch_assumed"
+CONTROL_SHORT = "control_short"
+
+
+class ControlError(ValueError):
+    """The control cannot serve an experiment: branch outside it, too short, mismatched series."""
+
+
+def _describe(attrs: Mapping) -> str:
+    parts = [str(attrs[key]) for key in ("model", "member", "experiment_id") if attrs.get(key)]
+    return " ".join(parts) if parts else "a run"
+
+
+def _years(ds: xr.Dataset, what: str) -> np.ndarray:
+    if "year" not in ds.dims:
+        raise ControlError(f"{what} of {_describe(ds.attrs)} has no 'year' dimension (dims {tuple(ds.dims)})")
+    years = np.asarray(ds["year"].values)
+    if years.size == 0:
+        raise ControlError(f"{what} of {_describe(ds.attrs)} has no years")
+    if np.any(np.diff(years) != 1):
+        raise ControlError(f"{what} of {_describe(ds.attrs)} has gaps or unordered years ({years[0]}-{years[-1]})")
+    return years.astype(int)
+
+
+def _scalar(value):
+    # netCDF attributes may arrive as one-element arrays
+    if isinstance(value, np.ndarray) and value.size == 1:
+        return value.item()
+    return value
+
+
+def _missing(value) -> bool:
+    if value is None:
+        return True
+    if isinstance(value, str):
+        return value.strip() == ""
+    try:
+        return bool(np.isnan(value))
+    except TypeError:
+        return False
+
+
+def branch_year(experiment_attrs: Mapping, control: xr.Dataset) -> tuple[int, list[str]]:
+    """Control calendar year in which the experiment starts.
+
+    ``branch_time_in_parent`` is decoded with ``parent_time_units`` in the control's calendar
+    (``control.attrs["calendar"]``, the parent's) through cftime. The branch year is the year
+    containing that instant, except that an instant within the last day of a year counts as the
+    start of the next year (some models record the branch at the end of the last day, e.g.
+    31 Dec 24:00 as 31 Dec 12:00 or 23:59); a branch on 1 Jan Y 00:00 is year Y.
+
+    Returns
+    -------
+    (year, flags)
+        ``flags`` holds ``branch_assumed`` when the experiment carries no branch information and
+        the control's first year is used.
+
+    Raises
+    ------
+    ControlError
+        Undecodable branch information, or a branch year outside the control's years.
+    """
+    control_years = _years(control, "control")
+    who = _describe(experiment_attrs)
+    branch_time = _scalar(experiment_attrs.get("branch_time_in_parent"))
+    units = _scalar(experiment_attrs.get("parent_time_units"))
+    if _missing(branch_time) or _missing(units):
+        return int(control_years[0]), [BRANCH_ASSUMED]
+    calendar = control.attrs.get("calendar")
+    if _missing(calendar):
+        raise ControlError(
+            f"control of {_describe(control.attrs)} has no 'calendar' attribute; "
+            f"cannot decode the branch of {who}"
+        )
+    try:
+        when = cftime.num2date(float(branch_time), str(units), calendar=str(calendar))
+        next_new_year = cftime.datetime(when.year + 1, 1, 1, calendar=when.calendar, has_year_zero=when.has_year_zero)
+    except (ValueError, TypeError) as err:
+        raise ControlError(
+            f"{who}: cannot decode branch_time_in_parent={branch_time!r} in {units!r} "
+            f"({calendar} calendar): {err}"
+        ) from None
+    year = when.year + 1 if next_new_year - when <= datetime.timedelta(days=1) else when.year
+    if not control_years[0] <= year <= control_years[-1]:
+        raise ControlError(
+            f"{who} branches in control year {year} (branch_time_in_parent={branch_time!r} {units}), "
+            f"outside the control {_describe(control.attrs)} years {control_years[0]}-{control_years[-1]}"
+        )
+    return int(year), []
+
+
+def _drift(segment: xr.Dataset, at: np.ndarray, order: int) -> dict[str, np.ndarray]:
+    """Polynomial of ``order`` in time fitted to each variable of ``segment``, evaluated at years ``at``.
+
+    Time is measured from the segment's first year so the fit is well conditioned.
+    """
+    origin = int(segment["year"].values[0])
+    x = segment["year"].values.astype(float) - origin
+    design = np.vander(x, order + 1, increasing=True)
+    target = np.vander(np.asarray(at, dtype=float) - origin, order + 1, increasing=True)
+    fitted = {}
+    for name, da in segment.data_vars.items():
+        coef, *_ = np.linalg.lstsq(design, np.asarray(da.values, dtype=np.float64), rcond=None)
+        fitted[name] = target @ coef
+    return fitted
+
+
+def _check_order(order: int) -> int:
+    if order not in (1, 2):
+        raise ControlError(f"drift order must be 1 (linear) or 2 (quadratic); got {order!r}")
+    return int(order)
+
+
+def _relabel(values: Mapping[str, np.ndarray], template: xr.Dataset, calendar_years: np.ndarray) -> xr.Dataset:
+    n = calendar_years.size
+    coords = {"year": ("year", np.arange(1, n + 1)), "calendar_year": ("year", calendar_years)}
+    data = {
+        name: xr.Variable("year", values[name], attrs=dict(template[name].attrs)) for name in values
+    }
+    out = xr.Dataset(data, coords=coords, attrs=dict(template.attrs))
+    out["year"].attrs.update(long_name="years since the branch from the control (1 = first year)")
+    out["calendar_year"].attrs.update(long_name="calendar year of the run's own calendar")
+    return out
+
+
+def _net_flux(ds: xr.Dataset) -> np.ndarray | None:
+    if all(name in ds.data_vars for name in ("rsdt", "rsut", "rlut")):
+        return (ds["rsdt"] - ds["rsut"] - ds["rlut"]).values
+    if "rtnt" in ds.data_vars:
+        return ds["rtnt"].values
+    return None
+
+
+def drift_corrected(
+    experiment: xr.Dataset,
+    control: xr.Dataset,
+    branch_year: int,
+    order: int = 1,
+    min_years: int = 30,
+) -> tuple[xr.Dataset, list[str]]:
+    """Experiment minus the control's drift over the parallel segment.
+
+    The experiment's year k (k = 1 … n) runs alongside control year ``branch_year + k - 1``.
+    Each variable of the control is fitted over the control years available in
+    ``branch_year … branch_year + n - 1`` by a polynomial of ``order`` (1 or 2); the fit is
+    evaluated at all n parallel years (extrapolated where the control ends early) and subtracted.
+    Because the fit is linear in the data, correcting fluxes and then forming N equals correcting N.
+
+    Parameters
+    ----------
+    experiment, control : xarray.Dataset
+        Annual series (dimension ``year`` = calendar year, consecutive).
+    branch_year : int
+        From :func:`branch_year`.
+    order : {1, 2}
+    min_years : int
+        Fewest control years in the parallel segment that still allow a fit.
+
+    Returns
+    -------
+    (anomalies, flags)
+        ``anomalies``: every variable the experiment and the control share, dimension ``year`` = 1..n,
+        coordinate ``calendar_year`` (the experiment's years), the experiment's attributes plus
+        ``branch_year``, ``drift_order``, ``control_years`` (the segment fitted) and
+        ``control_rtnt_mean`` (mean net TOA flux of the control over that segment, W m-2, for the
+        energy-leak check; NaN when the control lacks the fluxes). ``flags``: ``control_short``
+        when the control ends before the experiment does; ``control_lacks_<var>`` for each experiment
+        variable the control does not have (left out of the anomalies).
+
+    Raises
+    ------
+    ControlError
+        Fewer than ``min_years`` control years in the parallel segment; gaps in either series.
+    """
+    order = _check_order(order)
+    calendar_years = _years(experiment, "experiment")
+    control_years = _years(control, "control")
+    n = calendar_years.size
+    parallel = np.arange(branch_year, branch_year + n)
+    segment = control.sel(year=slice(int(parallel[0]), int(parallel[-1])))
+    available = segment.sizes["year"]
+    who = _describe(experiment.attrs)
+    if available < max(int(min_years), order + 1):
+        raise ControlError(
+            f"{who}: the control {_describe(control.attrs)} has {available} years from branch year "
+            f"{branch_year} (control years {control_years[0]}-{control_years[-1]}); "
+            f"at least {min_years} are needed for the drift fit"
+        )
+    flags = []
+    if available < n:
+        flags.append(CONTROL_SHORT)
+    shared = [name for name in experiment.data_vars if name in control.data_vars]
+    flags += [f"control_lacks_{name}" for name in experiment.data_vars if name not in control.data_vars]
+    if not shared:
+        raise ControlError(f"{who}: the control {_describe(control.attrs)} has none of its variables")
+    drift = _drift(segment[shared], parallel, order)
+    values = {name: np.asarray(experiment[name].values, dtype=np.float64) - drift[name] for name in shared}
+    out = _relabel(values, experiment[shared], calendar_years)
+    net = _net_flux(segment)
+    out.attrs.update(
+        branch_year=int(branch_year),
+        drift_order=order,
+        control_years=f"{int(segment['year'].values[0])}-{int(segment['year'].values[-1])}",
+        control_rtnt_mean=float(np.mean(net)) if net is not None else math.nan,
+    )
+    return out, flags
+
+
+def control_residuals(control: xr.Dataset, order: int = 1) -> xr.Dataset:
+    """The control minus its own whole-run drift fit: internal variability, ``year`` = 1..n.
+
+    ``calendar_year`` holds the control's years; attributes are kept, plus ``drift_order``.
+    """
+    order = _check_order(order)
+    years = _years(control, "control")
+    if years.size <= order + 1:
+        raise ControlError(f"control {_describe(control.attrs)} has {years.size} years; too few for a drift fit")
+    drift = _drift(control, years, order)
+    values = {name: np.asarray(control[name].values, dtype=np.float64) - drift[name] for name in control.data_vars}
+    out = _relabel(values, control, years)
+    out.attrs.update(drift_order=order)
+    return out
+
+
+# Branch information of a chained run is that of its first part, where the chain leaves the control.
+_BRANCH_ATTRS = ("branch_time_in_parent", "parent_time_units", "parent_experiment_id")
+
+
+def join_chain(first: xr.Dataset, continuation: xr.Dataset) -> xr.Dataset:
+    """A scenario joined to the historical-type run it continues, along ``year``.
+
+    The continuation must start the year after ``first`` ends and share its calendar. The result
+    carries the continuation's attributes (its ``experiment_id``) with the branch information of
+    ``first`` (so it aligns with the control from where ``first`` left it), ``chain`` =
+    ``"<first id>;<continuation id>"``, the files and flags of both. Variables only one part has
+    are left out and flagged ``chain_lacks_<var>``.
+    """
+    first_years = _years(first, "first part of chain")
+    next_years = _years(continuation, "continuation of chain")
+    first_id = first.attrs.get("experiment_id", "first run")
+    next_id = continuation.attrs.get("experiment_id", "continuation")
+    model = first.attrs.get("model", "")
+    if next_years[0] != first_years[-1] + 1:
+        raise ControlError(
+            f"{model} {next_id} starts in {next_years[0]} but {first_id} ends in {first_years[-1]}; "
+            f"a continuation must start the year after ({first_years[-1] + 1})".strip()
+        )
+    calendars = (first.attrs.get("calendar"), continuation.attrs.get("calendar"))
+    if calendars[0] != calendars[1]:
+        raise ControlError(
+            f"{model} {first_id} uses calendar {calendars[0]!r} but {next_id} uses {calendars[1]!r}; "
+            "they cannot be joined".strip()
+        )
+    shared = [name for name in first.data_vars if name in continuation.data_vars]
+    lacking = sorted(set(first.data_vars) ^ set(continuation.data_vars))
+    joined = xr.concat([first[shared], continuation[shared]], dim="year", combine_attrs="drop_conflicts")
+    attrs = dict(continuation.attrs)
+    for key in _BRANCH_ATTRS:
+        if key in first.attrs:
+            attrs[key] = first.attrs[key]
+        else:
+            attrs.pop(key, None)
+    attrs["chain"] = f"{first_id};{next_id}"
+    attrs["files"] = ";".join(f for f in (first.attrs.get("files", ""), continuation.attrs.get("files", "")) if f)
+    flags = {f for part in (first, continuation) for f in str(part.attrs.get("flags", "")).split(";") if f}
+    flags |= {f"chain_lacks_{name}" for name in lacking}
+    attrs["flags"] = ";".join(sorted(flags))
+    joined.attrs = attrs
+    return joined

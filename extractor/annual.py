@@ -1,0 +1,118 @@
+"""Calendar-correct annual means of monthly global-mean series."""
+from __future__ import annotations
+
+import cftime
+import numpy as np
+import xarray as xr
+
+from .errors import ArchiveError
+
+_SECONDS_PER_DAY = 86400.0
+_BOUNDS_NAMES = ("time_bnds", "time_bounds")
+
+
+def month_lengths(times, calendar: str) -> np.ndarray:
+    """Length in days of the calendar month holding each time, in the given CF calendar.
+
+    Month starts are built with cftime, so every CF calendar counts its own days (28–31 in
+    ``standard``/``julian``/``proleptic_gregorian``/``noleap``/``all_leap``, 30 in ``360_day``,
+    the 1582 Julian→Gregorian switch in ``standard``).
+    """
+    values = times.values if isinstance(times, (xr.DataArray, xr.Variable)) else np.asarray(times)
+    lengths = np.empty(values.shape, dtype=np.float64)
+    for i, t in enumerate(values.ravel()):
+        year, month = t.year, t.month
+        start = cftime.datetime(year, month, 1, calendar=calendar)
+        end = cftime.datetime(year + month // 12, month % 12 + 1, 1, calendar=calendar)
+        lengths.ravel()[i] = (end - start).total_seconds() / _SECONDS_PER_DAY
+    return lengths
+
+
+def _bounds_of(ds: xr.Dataset) -> xr.DataArray | None:
+    names = [ds["time"].attrs.get("bounds"), ds["time"].encoding.get("bounds"), *_BOUNDS_NAMES]
+    for name in names:
+        if name and name in ds.variables and "time" in ds[name].dims and ds[name].ndim == 2:
+            return ds[name]
+    return None
+
+
+def annual_means(ds: xr.Dataset) -> xr.Dataset:
+    """Month-length-weighted calendar-year means of a monthly Dataset (dim ``time``).
+
+    Month lengths come from the time bounds when present (the length of each averaging
+    interval), else from the calendar in ``attrs["calendar"]`` (or the time encoding) through
+    cftime. Only complete years (twelve distinct months) are kept; a partial year is dropped
+    and ``partial_years`` is appended to ``attrs["flags"]`` (the dropped years are listed in
+    ``attrs["partial_years_dropped"]``). Meant for the small computed series: it loads the data.
+
+    Returns
+    -------
+    Dataset
+        Dimension ``year`` (int, calendar year); every data variable with a ``time`` dim except
+        the bounds, float64, attributes kept and ``"time: mean"`` appended to ``cell_methods``.
+    """
+    if "time" not in ds.dims:
+        raise ArchiveError("series has no time dimension", model=ds.attrs.get("model"))
+    times = ds["time"].values
+    if times.size and not hasattr(times[0], "calendar"):
+        raise ArchiveError(
+            "time is not decoded to cftime dates", model=ds.attrs.get("model"),
+            hint="open files with xr.coders.CFDatetimeCoder(use_cftime=True)",
+        )
+    calendar = (
+        ds.attrs.get("calendar")
+        or ds["time"].encoding.get("calendar")
+        or (times[0].calendar if times.size else "standard")
+    )
+
+    bounds = _bounds_of(ds)
+    if bounds is not None:
+        b = bounds.transpose("time", ...).values
+        weights = np.array([(hi - lo).total_seconds() / _SECONDS_PER_DAY for lo, hi in b], dtype=np.float64)
+        if np.any(weights <= 0) or np.any(weights > 31.5):
+            raise ArchiveError(
+                "time bounds give month lengths outside 0–31 days", model=ds.attrs.get("model"),
+                hint="fix time_bnds or remove them so lengths come from the calendar",
+            )
+    else:
+        weights = month_lengths(times, calendar)
+
+    years = np.array([t.year for t in times], dtype=np.int64)
+    months = np.array([t.month for t in times], dtype=np.int64)
+    all_years = np.unique(years)
+    complete = np.array(
+        [np.unique(months[years == y]).size == 12 and np.sum(years == y) == 12 for y in all_years], dtype=bool
+    )
+    kept = all_years[complete]
+    dropped = all_years[~complete]
+
+    bounds_name = None if bounds is None else bounds.name
+    variables = [v for v in ds.data_vars if "time" in ds[v].dims and v != bounds_name and v not in _BOUNDS_NAMES]
+    out = xr.Dataset(coords={"year": ("year", kept, {"long_name": "calendar year", "calendar": calendar})})
+    for name in variables:
+        da = ds[name].transpose("time", ...)
+        values = np.asarray(da.values, dtype=np.float64)
+        shape = (kept.size,) + values.shape[1:]
+        result = np.empty(shape, dtype=np.float64)
+        for k, year in enumerate(kept):
+            sel = years == year
+            w = weights[sel]
+            w = w.reshape((-1,) + (1,) * (values.ndim - 1))
+            result[k] = np.sum(values[sel] * w, axis=0) / np.sum(w)
+        annual = xr.DataArray(result, dims=("year",) + da.dims[1:], coords={"year": kept}, name=name, attrs=dict(da.attrs))
+        methods = str(da.attrs.get("cell_methods", "")).strip()
+        annual.attrs["cell_methods"] = f"{methods} time: mean".strip()
+        out[name] = annual
+
+    attrs = dict(ds.attrs)
+    if dropped.size:
+        flags = [f for f in str(attrs.get("flags", "")).split(";") if f]
+        if "partial_years" not in flags:
+            flags.append("partial_years")
+        attrs["flags"] = ";".join(flags)
+        attrs["partial_years_dropped"] = ";".join(str(int(y)) for y in dropped)
+    attrs.setdefault("flags", "")
+    attrs["calendar"] = calendar
+    attrs["annual_weights"] = "time_bounds" if bounds is not None else "calendar_month_lengths"
+    out.attrs = attrs
+    return out

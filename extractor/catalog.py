@@ -1,0 +1,313 @@
+"""Finding runs in an archive: file names and directories only, no file is opened.
+
+An archive is a tree of CMIP-style NetCDF files, laid out either in the CMIP data
+reference syntax (DRS)::
+
+    …/<source_id>/<experiment_id>/<member_id>/<table_id>/<variable_id>/<grid_label>/<version>/<file>.nc
+
+or flat (all files in one or a few folders). Either way the file name carries the facets::
+
+    <variable_id>_<table_id>_<source_id>_<experiment_id>_<member_id>_<grid_label>[_<start>-<end>].nc
+
+`scan` groups the files into runs (one model, member and experiment) and lists what it
+could not use in `Catalog.problems`, so nothing is dropped without a word. Whether the
+files themselves agree with their names is checked when they are opened (`extractor.runs`).
+"""
+from __future__ import annotations
+
+import re
+from collections import defaultdict
+from dataclasses import dataclass, field
+from pathlib import Path
+
+from .settings import ExtractionSettings
+
+AREA_VARIABLE = "areacella"
+FIXED_TABLE = "fx"
+
+# DRS version directories are "v" + date (vYYYYMMDD); some archives use "v1", "v2"
+_VERSION = re.compile(r"^v\d+$")
+_TIME_RANGE = re.compile(r"^(\d+)(?:-(\d+))?(-clim)?$")
+
+
+@dataclass(frozen=True)
+class FileFacets:
+    """The facets one file name (and, in a DRS tree, its directories) carries."""
+
+    path: Path
+    variable_id: str
+    table_id: str
+    source_id: str
+    experiment_id: str
+    member_id: str
+    grid_label: str
+    time_range: str | None
+    version: str | None
+
+    @property
+    def start(self) -> str:
+        if not self.time_range:
+            return ""
+        return self.time_range.split("-")[0]
+
+
+@dataclass
+class RunFiles:
+    """The files of one run: one model, one member, one experiment.
+
+    Attributes
+    ----------
+    model, member, experiment_id : str
+        Facets from the file names (the files' own attributes may later overrule them).
+    files : dict
+        Variable id → files, sorted by the time range in their names.
+    areacella : Path or None
+        Cell areas on the run's grid, possibly from another experiment of the same model.
+    version : str or None
+        The DRS version directory used (the newest found); ``None`` for a flat archive.
+        When variables come from different versions, the newest is named.
+    grid_label : str
+        The grid the run's variables are on.
+    flags : list of str
+        Quality flags found while cataloguing (e.g. ``areacella_other_member``).
+    """
+
+    model: str
+    member: str
+    experiment_id: str
+    files: dict[str, list[Path]]
+    areacella: Path | None = None
+    version: str | None = None
+    grid_label: str = ""
+    flags: list[str] = field(default_factory=list)
+
+    @property
+    def variables(self) -> list[str]:
+        return list(self.files)
+
+    @property
+    def label(self) -> str:
+        return f"model {self.model} member {self.member} {self.experiment_id}"
+
+    def all_files(self) -> list[Path]:
+        paths = [p for ps in self.files.values() for p in ps]
+        if self.areacella is not None:
+            paths.append(self.areacella)
+        return paths
+
+
+@dataclass
+class Catalog:
+    """Runs found in an archive, and what could not be used."""
+
+    root: Path
+    runs: list[RunFiles] = field(default_factory=list)
+    problems: list[str] = field(default_factory=list)
+
+    def models(self) -> list[str]:
+        return sorted({r.model for r in self.runs})
+
+    def members(self, model: str) -> list[str]:
+        return sorted({r.member for r in self.runs if r.model == model})
+
+    def experiments(self, model: str, member: str) -> list[str]:
+        return sorted({r.experiment_id for r in self.runs if r.model == model and r.member == member})
+
+    def get(self, model: str, member: str, experiment_id: str) -> RunFiles | None:
+        """The run of this model, member and experiment, or ``None`` when the archive has none."""
+        for run in self.runs:
+            if (run.model, run.member, run.experiment_id) == (model, member, experiment_id):
+                return run
+        return None
+
+    def runs_of(self, model: str, member: str | None = None) -> list[RunFiles]:
+        return [r for r in self.runs if r.model == model and (member is None or r.member == member)]
+
+
+def parse_file_name(path: Path) -> FileFacets | None:
+    """Facets of one file from its name and (when in a DRS tree) its directories.
+
+    Returns ``None`` when the name does not follow the pattern. CMIP facet values never
+    hold underscores (experiment ids and source ids use hyphens), so splitting on ``_``
+    is unambiguous.
+    """
+    path = Path(path)
+    if path.suffix != ".nc":
+        return None
+    parts = path.stem.split("_")
+    if len(parts) not in (6, 7) or not all(parts):
+        return None
+    variable_id, table_id, source_id, experiment_id, member_id, grid_label = parts[:6]
+    time_range = None
+    if len(parts) == 7:
+        if not _TIME_RANGE.match(parts[6]):
+            return None
+        time_range = parts[6]
+    return FileFacets(
+        path=path,
+        variable_id=variable_id,
+        table_id=table_id,
+        source_id=source_id,
+        experiment_id=experiment_id,
+        member_id=member_id,
+        grid_label=grid_label,
+        time_range=time_range,
+        version=_drs_version(path, source_id, experiment_id, member_id, table_id, variable_id, grid_label),
+    )
+
+
+def _drs_version(path: Path, *facets: str) -> str | None:
+    """The version directory (``v…``) holding the file, else None (flat archive).
+
+    Whether the directories above agree with the name is not judged here: the file's own
+    global attributes are the authority, checked when it is opened.
+    """
+    folder = path.parent.name
+    return folder if _VERSION.match(folder) else None
+
+
+def _version_key(version: str | None) -> tuple[int, int]:
+    if version is None:
+        return (0, 0)
+    return (1, int(version[1:]))
+
+
+def _is_monthly(table_id: str) -> bool:
+    # CMIP tables of monthly fields: Amon, Emon, CFmon, AERmon, …
+    return table_id.endswith("mon")
+
+
+def scan(root: str | Path, settings: ExtractionSettings | None = None) -> Catalog:
+    """Catalogue the runs under ``root`` by file names alone.
+
+    Parameters
+    ----------
+    root : path
+        Top of the archive (DRS tree or flat folder; ``*.nc`` files are found at any depth).
+    settings : ExtractionSettings, optional
+        Which variables to take, which are required, which models to include or exclude.
+
+    Returns
+    -------
+    Catalog
+        ``runs`` sorted by model, member, experiment; ``problems`` as one-line messages:
+        unparsable file names, non-monthly tables, variables on a second grid,
+        missing required variables.
+    """
+    settings = settings or ExtractionSettings()
+    root = Path(root)
+    catalog = Catalog(root=root)
+    if not root.exists():
+        catalog.problems.append(f"archive {root}: does not exist — check the path")
+        return catalog
+
+    wanted = set(settings.variables) | set(settings.required_variables)
+    include = set(settings.include_models)
+    exclude = set(settings.exclude_models)
+
+    # (model, member, experiment, variable, grid) → version → files
+    by_series: dict[tuple, dict[str | None, list[FileFacets]]] = defaultdict(lambda: defaultdict(list))
+    areas: list[FileFacets] = []
+    for path in sorted(root.rglob("*.nc")):
+        if not path.is_file():
+            continue
+        facets = parse_file_name(path)
+        if facets is None:
+            catalog.problems.append(
+                f"file {path}: name does not follow "
+                "<variable>_<table>_<source>_<experiment>_<member>_<grid>[_<start>-<end>].nc — file skipped, rename it"
+            )
+            continue
+        if include and facets.source_id not in include:
+            continue
+        if facets.source_id in exclude:
+            continue
+        if facets.variable_id == AREA_VARIABLE:
+            if facets.table_id == FIXED_TABLE:
+                areas.append(facets)
+            else:
+                catalog.problems.append(f"model {facets.source_id}: file {path}: areacella outside table fx — file skipped")
+            continue
+        if facets.variable_id not in wanted:
+            continue
+        if not _is_monthly(facets.table_id):
+            catalog.problems.append(
+                f"model {facets.source_id}: file {path}: table {facets.table_id} is not monthly — file skipped"
+            )
+            continue
+        key = (facets.source_id, facets.member_id, facets.experiment_id, facets.variable_id, facets.grid_label)
+        by_series[key][facets.version].append(facets)
+
+    # newest version of each variable
+    newest: dict[tuple, tuple[str | None, list[FileFacets]]] = {}
+    for key, versions in by_series.items():
+        version = max(versions, key=_version_key)
+        newest[key] = (version, versions[version])
+
+    # group into runs, one grid per run
+    grouped: dict[tuple, dict[str, dict[str, tuple[str | None, list[FileFacets]]]]] = defaultdict(
+        lambda: defaultdict(dict)
+    )
+    for (model, member, experiment, variable, grid), chosen in newest.items():
+        grouped[(model, member, experiment)][grid][variable] = chosen
+
+    for (model, member, experiment), grids in sorted(grouped.items()):
+        grid = _choose_grid(grids, settings.required_variables)
+        for other in sorted(set(grids) - {grid}):
+            catalog.problems.append(
+                f"model {model} member {member}: {experiment} has {', '.join(sorted(grids[other]))} "
+                f"also on grid {other}; using grid {grid}"
+            )
+        chosen = grids[grid]
+        files = {
+            v: [f.path for f in sorted(chosen[v][1], key=lambda f: (_start_key(f.start), f.path.name))]
+            for v in settings.variables
+            if v in chosen
+        }
+        versions = [chosen[v][0] for v in chosen if chosen[v][0] is not None]
+        run = RunFiles(
+            model=model,
+            member=member,
+            experiment_id=experiment,
+            files=files,
+            version=max(versions, key=_version_key) if versions else None,
+            grid_label=grid,
+        )
+        for variable in settings.required_variables:
+            if variable not in files:
+                catalog.problems.append(f"model {model} member {member}: {experiment} has no {variable}")
+        _attach_area(run, areas)
+        catalog.runs.append(run)
+    return catalog
+
+
+def _start_key(start: str) -> int:
+    return int(start) if start.isdigit() else -1
+
+
+def _choose_grid(grids: dict[str, dict], required: tuple[str, ...]) -> str:
+    # the grid holding most required variables, then most variables; native grid "gn" first
+    def score(label: str):
+        names = grids[label]
+        return (sum(v in names for v in required), len(names), label == "gn", label)
+
+    return max(grids, key=score)
+
+
+def _attach_area(run: RunFiles, areas: list[FileFacets]) -> None:
+    """Cell areas for a run: same model and grid; the same member if possible, else any member.
+
+    Cell areas are fixed fields published once per model, typically with the control run,
+    so any experiment of the model will do; the same experiment is preferred, then the newest version.
+    """
+    candidates = [a for a in areas if a.source_id == run.model and a.grid_label == run.grid_label]
+    if not candidates:
+        return
+
+    def preference(a: FileFacets):
+        return (a.member_id == run.member, a.experiment_id == run.experiment_id, _version_key(a.version), str(a.path))
+
+    best = max(candidates, key=preference)
+    run.areacella = best.path
+    if best.member_id != run.member:
+        run.flags.append("areacella_other_member")

@@ -313,12 +313,16 @@ def quadratic_fit(dT, dN, years=_DEFAULTS.fit_years) -> QuadraticFit:
 
 
 def noise_scale(values: np.ndarray) -> float:
-    """Year-to-year noise of a series: std of first differences / √2.
+    """Year-to-year noise of a series: robust standard deviation of first differences / √2.
 
     For a slowly varying signal plus independent annual noise, differencing removes the signal
-    and doubles the noise variance (common practice, no source).
+    and doubles the noise variance (common practice, no source). The spread is measured by the
+    median absolute deviation (× 1.4826, its ratio to σ for normal data) so that the few large
+    steps of the fast response in the first years of an abrupt run do not count as noise.
     """
-    return float(np.std(np.diff(values), ddof=1) / np.sqrt(2.0))
+    steps = np.diff(np.asarray(values, dtype=float))
+    mad = np.median(np.abs(steps - np.median(steps)))
+    return float(1.4826 * mad / np.sqrt(2.0))
 
 
 def odr_fit(

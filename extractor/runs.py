@@ -1,0 +1,383 @@
+"""Opening one run: its files checked and joined along time, then reduced to lazy global means.
+
+Every check raises `ArchiveError` naming the model, the file and the problem, so a batch
+can record the failure of this run and go on with the others. Fallbacks that are safe
+(a missing calendar read as CF's default, file attributes overruling the path) are kept
+as quality flags in ``attrs["flags"]``. Files are opened read-only and stay lazy (dask);
+nothing in the archive is modified.
+"""
+from __future__ import annotations
+
+import re
+from pathlib import Path
+
+import numpy as np
+import xarray as xr
+
+from .catalog import RunFiles
+from .errors import ArchiveError
+from .means import area_weights, find_lat_lon, global_mean
+
+#: time chunk of the lazy arrays: ten years of monthly fields
+DEFAULT_CHUNKS = {"time": 120}
+
+#: CF calendar names (CF conventions §4.4.1), lower case; aliases map to one name
+CALENDARS = {
+    "standard": "standard",
+    "gregorian": "standard",
+    "proleptic_gregorian": "proleptic_gregorian",
+    "noleap": "noleap",
+    "365_day": "noleap",
+    "all_leap": "all_leap",
+    "366_day": "all_leap",
+    "360_day": "360_day",
+    "julian": "julian",
+}
+
+TEMPERATURE = {"tas"}
+KELVIN = {"K", "kelvin", "Kelvin", "degK", "deg_K", "degrees_K"}
+CELSIUS = {"degC", "deg_C", "Celsius", "celsius", "degree_Celsius", "degrees_Celsius", "degree_C", "degrees_C", "°C"}
+# spellings of W m-2 once "**"/"^" are dropped and separators reduced to one space
+FLUX_UNITS = {"W m-2", "W/m2", "W / m2", "Wm-2", "W m -2", "watt m-2", "watts m-2", "W/m 2"}
+
+# global attributes checked against the path: attribute name → RunFiles field
+_IDENTITY = {"source_id": "model", "experiment_id": "experiment_id", "variant_label": "member"}
+
+
+def open_run(run: RunFiles, chunks: dict | None = None) -> xr.Dataset:
+    """Open, check and join the files of one run, lazily.
+
+    Parameters
+    ----------
+    run : RunFiles
+        From `extractor.catalog.scan`.
+    chunks : dict, optional
+        Dask chunks (default `DEFAULT_CHUNKS`).
+
+    Returns
+    -------
+    Dataset
+        Every variable of the run on one ``time`` axis (cftime dates, the run's calendar),
+        temperatures in K, fluxes in W m-2; ``time_bnds``, ``lat_bnds``, ``lon_bnds`` when the
+        files have them (cell areas: `open_area`). Attributes as in the
+        "Annual global-mean series" contract of DEVELOPERS.md.
+
+    Raises
+    ------
+    ArchiveError
+        Unreadable file, missing variable, wrong units, unknown calendar, time steps that are
+        not monthly, gaps, overlaps, duplicated or non-monotonic times, grids that differ
+        between variables, files of one run disagreeing on who they are.
+    """
+    chunks = dict(DEFAULT_CHUNKS if chunks is None else chunks)
+    flags: list[str] = list(run.flags)
+    if not run.files:
+        raise ArchiveError("run has no variable files", model=run.model, member=run.member, experiment_id=run.experiment_id)
+
+    series: dict[str, xr.DataArray] = {}
+    months: dict[str, np.ndarray] = {}
+    first: dict[str, xr.Dataset] = {}
+    bounds: dict[str, xr.DataArray] = {}
+    identity: dict[str, tuple[str, Path]] = {}
+    calendar: tuple[str, Path] | None = None
+    for variable, paths in run.files.items():
+        opened = []
+        for path in paths:
+            ds, file_calendar, defaulted = _open_file(path, variable, run, chunks)
+            if defaulted and "calendar_defaulted" not in flags:
+                flags.append("calendar_defaulted")
+            if calendar is None:
+                calendar = (file_calendar, path)
+            elif CALENDARS[file_calendar] != CALENDARS[calendar[0]]:
+                raise _error(
+                    run, path, f"calendar {file_calendar!r} differs from {calendar[0]!r} in {calendar[1].name}",
+                    "all files of a run must use one calendar",
+                )
+            _collect_identity(ds, path, run, identity)
+            opened.append((ds, _month_index(ds, path, run), path))
+        opened.sort(key=lambda item: item[1][0])
+        _check_joins(opened, run)
+        _check_same_grid([(ds[variable], path) for ds, _, path in opened], run)
+        series[variable] = xr.concat(
+            [ds[variable] for ds, _, _ in opened], dim="time", coords="minimal", compat="override", join="override"
+        )
+        months[variable] = np.concatenate([m for _, m, _ in opened])
+        first[variable] = opened[0][0]
+        bnds = _time_bounds(opened)
+        if bnds is not None:
+            bounds[variable] = bnds
+
+    reference = next(iter(run.files))
+    ref_path = run.files[reference][0]
+    _check_grids_between_variables(series, run, reference)
+
+    # one time axis for all variables: the months every variable has
+    common = months[reference]
+    for variable in series:
+        common = np.intersect1d(common, months[variable])
+    if common.size == 0:
+        raise _error(run, ref_path, "the variables share no time step", "give all variables the same period")
+    trimmed = any(months[v].size != common.size for v in series)
+    if trimmed:
+        flags.append("time_trimmed")
+    ref_positions = np.flatnonzero(np.isin(months[reference], common))
+    time = series[reference]["time"].isel(time=ref_positions)
+    data_vars = {}
+    for variable, da in series.items():
+        keep = np.flatnonzero(np.isin(months[variable], common))
+        data_vars[variable] = da.isel(time=keep).assign_coords(time=time.values)
+    ds = xr.Dataset(data_vars)
+    ds["time"].attrs = {k: v for k, v in time.attrs.items() if k != "bounds"}
+    if reference in bounds:
+        ds["time_bnds"] = bounds[reference].isel(time=ref_positions).assign_coords(time=time.values)
+        ds["time"].attrs["bounds"] = "time_bnds"
+    template = first[reference]
+    lat, lon = find_lat_lon(template)
+    for coord in (lat, lon):
+        name = template[coord].attrs.get("bounds") or f"{coord}_bnds"
+        if name in template.variables and "time" not in template[name].dims:
+            ds[f"{coord}_bnds"] = template[name].load()
+            ds[coord].attrs["bounds"] = f"{coord}_bnds"
+
+    attrs = _run_attributes(run, identity, template, flags)
+    attrs["calendar"] = CALENDARS[calendar[0]] if calendar else "standard"
+    attrs["time_units"] = str(template["time"].encoding.get("units", ""))
+    attrs["files"] = ";".join(str(p) for p in run.all_files())
+    attrs["flags"] = ";".join(dict.fromkeys(flags))
+    ds.attrs = attrs
+    return ds
+
+
+def global_mean_series(run: RunFiles, chunks: dict | None = None) -> xr.Dataset:
+    """Lazy float64 global means (dim ``time``) of every variable of a run.
+
+    All variables sit in one Dataset so that a single ``dask.compute`` over a batch of runs
+    reads each file once. Weights come from `extractor.means.area_weights`; a fallback to
+    cos φ adds the flag ``cos_weights``.
+
+    Returns
+    -------
+    Dataset
+        Dimension ``time``; the run's variables (units kept, ``cell_methods`` with ``area: mean``),
+        ``time_bnds`` when present; attributes of `open_run` plus ``weights``.
+    """
+    ds = open_run(run, chunks=chunks)
+    try:
+        weights, flag = area_weights(ds, open_area(run))
+    except ArchiveError as err:
+        raise _error(run, run.areacella or run.files[next(iter(run.files))][0], err.message, err.hint) from None
+    means = {v: global_mean(ds[v], weights) for v in run.files}
+    out = xr.Dataset(means)
+    if "time_bnds" in ds:
+        out["time_bnds"] = ds["time_bnds"]
+    out["time"].attrs = dict(ds["time"].attrs)
+    out.attrs = dict(ds.attrs)
+    out.attrs["weights"] = weights.attrs.get("weight_source", "")
+    if flag:
+        flags = [f for f in out.attrs["flags"].split(";") if f]
+        out.attrs["flags"] = ";".join(dict.fromkeys(flags + [flag]))
+    return out
+
+
+# ---------------------------------------------------------------------------- files
+
+
+def _error(run: RunFiles, path, message: str, hint: str | None = None) -> ArchiveError:
+    return ArchiveError(message, path=path, model=run.model, member=run.member, experiment_id=run.experiment_id, hint=hint)
+
+
+def _open_file(path: Path, variable: str, run: RunFiles, chunks: dict) -> tuple[xr.Dataset, str, bool]:
+    """One file, lazily, with checks on the variable, its units and the calendar."""
+    try:
+        raw = xr.open_dataset(path, engine="netcdf4", decode_times=False, chunks=chunks)
+    except Exception as err:  # netCDF4 raises OSError, xarray ValueError; both mean unreadable
+        raise _error(run, path, f"cannot be read ({type(err).__name__}: {err})", "replace the file") from None
+    if variable not in raw.data_vars:
+        raise _error(run, path, f"has no variable {variable!r}", "check the file's contents against its name")
+    if "time" not in raw[variable].dims:
+        raise _error(run, path, f"{variable} has no time dimension", "give monthly fields on a 'time' axis")
+    time = raw["time"]
+    if "units" not in time.attrs or " since " not in str(time.attrs["units"]):
+        raise _error(run, path, "time has no CF units ('<unit> since <date>')", "add units to the time variable")
+    defaulted = False
+    calendar = time.attrs.get("calendar")
+    if calendar is None:
+        # CF conventions §4.4.1: a missing calendar attribute means the standard calendar
+        calendar, defaulted = "standard", True
+    calendar = str(calendar).strip().lower()
+    if calendar not in CALENDARS:
+        raise _error(
+            run, path, f"unknown calendar {time.attrs.get('calendar')!r}",
+            f"use a CF calendar name ({', '.join(sorted(CALENDARS))})",
+        )
+    raw["time"].attrs["calendar"] = calendar
+    bounds_name = time.attrs.get("bounds")
+    if bounds_name in raw.variables:
+        raw[bounds_name].attrs.setdefault("calendar", calendar)
+        raw[bounds_name].attrs.setdefault("units", time.attrs["units"])
+    try:
+        ds = xr.decode_cf(raw, decode_times=xr.coders.CFDatetimeCoder(use_cftime=True))
+    except Exception as err:
+        raise _error(run, path, f"time cannot be decoded ({err})", "check the time units and calendar") from None
+    ds[variable] = _checked_units(ds[variable], variable, path, run)
+    return ds, calendar, defaulted
+
+
+def _checked_units(da: xr.DataArray, variable: str, path: Path, run: RunFiles) -> xr.DataArray:
+    units = da.attrs.get("units")
+    if units is None:
+        raise _error(run, path, f"{variable} has no units attribute", "add CF units; units are never guessed")
+    text = str(units).strip()
+    if variable in TEMPERATURE:
+        if text in KELVIN:
+            out = da
+        elif text in CELSIUS:
+            # CF/UDUNITS: K = degC + 273.15
+            out = da + 273.15
+            out.attrs = dict(da.attrs)
+            out.encoding = dict(da.encoding)
+        else:
+            raise _error(run, path, f"{variable} units {text!r} are not a temperature (K or degC)", "fix the units attribute")
+        out.attrs["units"] = "K"
+        return out.rename(da.name)
+    spelled = re.sub(r"[\s.·]+", " ", text.replace("**", "").replace("^", "")).strip()
+    if spelled not in FLUX_UNITS:
+        raise _error(run, path, f"{variable} units {text!r} are not W m-2", "give fluxes in W m-2 (fix the units attribute)")
+    out = da.copy()
+    out.attrs["units"] = "W m-2"
+    return out
+
+
+def _month_index(ds: xr.Dataset, path: Path, run: RunFiles) -> np.ndarray:
+    """Months since year 0 of each time step; checks the file's steps are monthly and in order."""
+    times = ds["time"].values
+    if times.size == 0:
+        raise _error(run, path, "has no time steps", "replace the file")
+    index = np.array([t.year * 12 + t.month - 1 for t in times], dtype=np.int64)
+    step = np.diff(index)
+    # report the most fundamental problem first: order, then duplicates, then spacing
+    checks = (
+        (step < 0, lambda i: f"time is not monotonic ({times[i]} → {times[i + 1]})"),
+        (np.array([a == b for a, b in zip(times[:-1], times[1:])], dtype=bool), lambda i: f"duplicated time step {times[i]}"),
+        (step == 0, lambda i: f"time steps are not monthly ({times[i]} → {times[i + 1]})"),
+        (step > 1, lambda i: f"gap of {step[i] - 1} month(s) in time ({times[i]} → {times[i + 1]})"),
+    )
+    for bad, problem in checks:
+        if bad.size and bad.any():
+            i = int(np.flatnonzero(bad)[0])
+            raise _error(run, path, problem(i), "monthly fields with one step per month, in order, are needed")
+    return index
+
+
+def _check_joins(opened: list, run: RunFiles) -> None:
+    """Consecutive files of one variable must follow each other month by month."""
+    for (_, before, path_a), (_, after, path_b) in zip(opened, opened[1:]):
+        step = after[0] - before[-1]
+        if step <= 0:
+            raise _error(
+                run, path_b, f"overlaps {path_a.name} by {1 - step} month(s)", "remove the duplicate or overlapping file"
+            )
+        if step > 1:
+            raise _error(
+                run, path_b, f"gap of {step - 1} month(s) after {path_a.name}", "supply the missing file"
+            )
+
+
+def _grid_of(da: xr.DataArray) -> dict[str, np.ndarray]:
+    lat, lon = find_lat_lon(da)
+    return {name: np.asarray(da[name].values, dtype=np.float64) for name in (lat, lon)}
+
+
+def _same_grid(a: dict, b: dict) -> bool:
+    return a.keys() == b.keys() and all(
+        a[k].shape == b[k].shape and np.allclose(a[k], b[k], atol=1e-4) for k in a
+    )
+
+
+def _check_same_grid(items: list[tuple[xr.DataArray, Path]], run: RunFiles) -> None:
+    reference = _grid_of(items[0][0])
+    for da, path in items[1:]:
+        if not _same_grid(reference, _grid_of(da)):
+            raise _error(run, path, f"grid differs from {items[0][1].name}", "all files of a variable need one grid")
+
+
+def _check_grids_between_variables(series: dict[str, xr.DataArray], run: RunFiles, reference: str) -> None:
+    grid = _grid_of(series[reference])
+    for variable, da in series.items():
+        if variable != reference and not _same_grid(grid, _grid_of(da)):
+            raise _error(
+                run, run.files[variable][0], f"grid of {variable} differs from that of {reference}",
+                "regrid or use the variables of one grid_label",
+            )
+
+
+def _time_bounds(opened: list) -> xr.DataArray | None:
+    parts = []
+    for ds, _, _ in opened:
+        name = ds["time"].attrs.get("bounds") or ds["time"].encoding.get("bounds")
+        if not name or name not in ds.variables:
+            return None
+        b = ds[name]
+        parts.append(b.rename({d: "bnds" for d in b.dims if d != "time"}))
+    return xr.concat(parts, dim="time", coords="minimal", compat="override", join="override").rename("time_bnds")
+
+
+def open_area(run: RunFiles) -> xr.DataArray | None:
+    """The run's cell areas (loaded: a single 2-D field), or None when the run has none."""
+    path = run.areacella
+    if path is None:
+        return None
+    try:
+        with xr.open_dataset(path, engine="netcdf4") as area_file:
+            if "areacella" not in area_file.data_vars:
+                raise _error(run, path, "has no variable 'areacella'", "check the file's contents against its name")
+            return area_file["areacella"].load()
+    except ArchiveError:
+        raise
+    except Exception as err:
+        raise _error(run, path, f"cannot be read ({type(err).__name__}: {err})", "replace the file") from None
+
+
+# ---------------------------------------------------------------------------- identity
+
+
+def _collect_identity(ds: xr.Dataset, path: Path, run: RunFiles, seen: dict) -> None:
+    """Identity attributes must agree between the files of a run."""
+    for attr in _IDENTITY:
+        value = ds.attrs.get(attr)
+        if value is None:
+            continue
+        value = str(value).strip()
+        if attr in seen and seen[attr][0] != value:
+            raise _error(
+                run, path, f"global attribute {attr}={value!r} but {seen[attr][1].name} has {seen[attr][0]!r}",
+                "the files of one run must agree on who they are",
+            )
+        seen.setdefault(attr, (value, path))
+
+
+def _run_attributes(run: RunFiles, identity: dict, template: xr.Dataset, flags: list[str]) -> dict:
+    attrs = {"model": run.model, "member": run.member, "experiment_id": run.experiment_id}
+    mismatches = []
+    for attr, field_name in _IDENTITY.items():
+        if attr in identity:
+            value = identity[attr][0]
+            if value != getattr(run, field_name):
+                # DESIGN.md: the file's own global attributes win over the path
+                mismatches.append(f"{attr}={value} (path: {getattr(run, field_name)})")
+                attrs[{"model": "model", "member": "member", "experiment_id": "experiment_id"}[field_name]] = value
+    if mismatches:
+        flags.append("attribute_mismatch")
+        attrs["attribute_mismatch"] = "; ".join(mismatches)
+    attrs["parent_experiment_id"] = str(template.attrs.get("parent_experiment_id", "")).strip()
+    attrs["parent_time_units"] = str(template.attrs.get("parent_time_units", "")).strip()
+    branch = template.attrs.get("branch_time_in_parent")
+    if branch is not None:
+        try:
+            attrs["branch_time_in_parent"] = float(np.asarray(branch, dtype=np.float64).ravel()[0])
+        except (TypeError, ValueError, IndexError):
+            flags.append("branch_time_unreadable")
+    attrs["grid_label"] = run.grid_label
+    if run.version:
+        attrs["version"] = run.version
+    return attrs

@@ -1,0 +1,194 @@
+"""Where a batch's dask graph runs: local threads, a local process pool, a running scheduler,
+or a SLURM/PBS job-queue cluster started and closed by the tool.
+
+`open_compute(settings)` is a context manager: inside it, `dask.compute` (and xarray's
+`.compute()`) run on the chosen workers; on exit every cluster it started is closed.
+"""
+from __future__ import annotations
+
+import contextlib
+import os
+from dataclasses import dataclass, field
+from typing import Iterator
+
+import dask
+
+#: Values of `ComputeSettings.kind`.
+KINDS = ("threads", "processes", "address", "slurm", "pbs")
+#: Kinds served by a job-queue cluster (dask-jobqueue, the optional `cluster` extra).
+JOB_QUEUE_KINDS = ("slurm", "pbs")
+
+# Stands in for the scheduler address in a rendered job script: the real address is only
+# known once the scheduler runs, and rendering must not start one.
+SCHEDULER_PLACEHOLDER = "tcp://<scheduler-address>:8786"
+JOB_NAME = "sensemble-worker"
+
+
+class ComputeError(RuntimeError):
+    """The compute back-end could not be set up (one line, says what to change)."""
+
+
+def cores_available() -> int:
+    """Cores this process may run on (CPU affinity where the system tells it), at least 1."""
+    try:
+        return max(1, len(os.sched_getaffinity(0)))
+    except (AttributeError, OSError):
+        return max(1, os.cpu_count() or 1)
+
+
+@dataclass(frozen=True)
+class ComputeSettings:
+    """How and where a batch computes (the `[compute]` section of a config).
+
+    `workers`, `threads_per_worker` and `memory_limit` size the local kinds ("threads",
+    "processes"). For "slurm"/"pbs", each of `jobs` batch jobs asks for `cores` cores and
+    `memory` memory (per job) for `walltime`, and runs `cores // threads_per_worker` worker
+    processes; `queue`, `account`, `job_extra_directives` (extra `#SBATCH`/`#PBS` lines),
+    `job_script_prologue` (shell lines run before the worker starts, e.g. activating the
+    environment), `local_directory` (node-local scratch), `log_directory` and `interface`
+    (network interface, e.g. "ib0") go into the job script.
+    """
+
+    kind: str = "threads"
+    workers: int = field(default_factory=cores_available)
+    threads_per_worker: int = 1
+    memory_limit: str | None = None  # per local worker, e.g. "4GiB"; None: dask's "auto"
+    address: str | None = None  # for kind = "address", e.g. "tcp://10.0.0.5:8786"
+    dashboard_address: str | None = None  # e.g. ":8787"; None: no dashboard
+    # job queues
+    queue: str | None = None
+    account: str | None = None
+    cores: int | None = None  # per job
+    memory: str | None = None  # per job, e.g. "32GiB"
+    walltime: str | None = None  # e.g. "02:00:00"
+    jobs: int = 1
+    job_extra_directives: tuple[str, ...] = ()
+    job_script_prologue: tuple[str, ...] = ()
+    local_directory: str | None = None
+    log_directory: str | None = None
+    interface: str | None = None
+
+
+def _job_queue_module(kind: str):
+    try:
+        import dask_jobqueue
+    except ImportError as error:
+        raise ComputeError(
+            f"compute kind '{kind}' needs dask-jobqueue, which is not installed: "
+            "pip install 'sensemble[cluster]'"
+        ) from error
+    return dask_jobqueue
+
+
+def _job_kwargs(settings: ComputeSettings) -> dict:
+    """Keyword arguments shared by dask-jobqueue's cluster and job classes."""
+    if settings.cores is None or settings.memory is None:
+        raise ComputeError(
+            f"compute kind '{settings.kind}' needs cores and memory per job "
+            "(e.g. cores = 8, memory = \"32GiB\" in [compute])"
+        )
+    kwargs = dict(
+        cores=settings.cores,
+        memory=settings.memory,
+        processes=max(1, settings.cores // settings.threads_per_worker),
+        job_name=JOB_NAME,
+        job_extra_directives=list(settings.job_extra_directives),
+        job_script_prologue=list(settings.job_script_prologue),
+    )
+    optional = dict(
+        queue=settings.queue,
+        account=settings.account,
+        walltime=settings.walltime,
+        local_directory=settings.local_directory,
+        log_directory=settings.log_directory,
+        interface=settings.interface,
+    )
+    kwargs.update({key: value for key, value in optional.items() if value is not None})
+    return kwargs
+
+
+def _job_classes(settings: ComputeSettings):
+    jobqueue = _job_queue_module(settings.kind)
+    if settings.kind == "slurm":
+        return jobqueue.SLURMCluster, jobqueue.slurm.SLURMJob
+    return jobqueue.PBSCluster, jobqueue.pbs.PBSJob
+
+
+def render_job_script(settings: ComputeSettings) -> str:
+    """The batch script each worker job of a SLURM/PBS cluster would be submitted with.
+
+    Rendered by dask-jobqueue exactly as its cluster would (`cluster.job_script()` builds the
+    same job object), but without starting a scheduler or submitting anything; the scheduler
+    address is the placeholder `SCHEDULER_PLACEHOLDER`.
+    """
+    if settings.kind not in JOB_QUEUE_KINDS:
+        raise ComputeError(
+            f"compute kind '{settings.kind}' has no job script; only {' and '.join(JOB_QUEUE_KINDS)} do"
+        )
+    _, job_class = _job_classes(settings)
+    try:
+        job = job_class(SCHEDULER_PLACEHOLDER, name="dummy-name", **_job_kwargs(settings))
+    except ValueError as error:  # dask-jobqueue's own checks (memory strings and the like)
+        raise ComputeError(f"compute kind '{settings.kind}': {_first_line(error)}") from error
+    return job.job_script()
+
+
+def _first_line(error: BaseException) -> str:
+    return (str(error).strip().splitlines() or [type(error).__name__])[0]
+
+
+@contextlib.contextmanager
+def open_compute(settings: ComputeSettings) -> Iterator[object | None]:
+    """Run the dask work inside the `with` block as `settings` say.
+
+    Yields a `distributed.Client` (kinds "processes", "address", "slurm", "pbs") or None
+    (kind "threads": dask's local threaded scheduler with `workers` threads, no client).
+    Clusters started here are closed on exit, also when the block raises.
+    """
+    if settings.kind not in KINDS:
+        raise ComputeError(f"unknown compute kind '{settings.kind}'; choose one of {', '.join(KINDS)}")
+    if settings.kind == "threads":
+        with dask.config.set(scheduler="threads", num_workers=max(1, settings.workers)):
+            yield None
+        return
+
+    from distributed import Client, LocalCluster
+
+    with contextlib.ExitStack() as stack:
+        if settings.kind == "address":
+            if not settings.address:
+                raise ComputeError("compute kind 'address' needs address (e.g. \"tcp://host:8786\")")
+            try:
+                client = Client(settings.address, timeout="20s")
+            except (OSError, TimeoutError) as error:
+                raise ComputeError(
+                    f"no dask scheduler answered at {settings.address}: {_first_line(error)}"
+                ) from error
+            stack.callback(client.close)
+        elif settings.kind == "processes":
+            cluster = LocalCluster(
+                n_workers=max(1, settings.workers),
+                threads_per_worker=settings.threads_per_worker,
+                processes=True,
+                memory_limit=settings.memory_limit or "auto",
+                dashboard_address=settings.dashboard_address,
+                local_directory=settings.local_directory,
+            )
+            stack.callback(cluster.close)
+            client = Client(cluster)
+            stack.callback(client.close)
+        else:
+            cluster_class, _ = _job_classes(settings)
+            if settings.dashboard_address:
+                scheduler_options = {"dashboard_address": settings.dashboard_address}
+            else:
+                scheduler_options = {"dashboard": False}
+            try:
+                cluster = cluster_class(scheduler_options=scheduler_options, **_job_kwargs(settings))
+            except ValueError as error:
+                raise ComputeError(f"compute kind '{settings.kind}': {_first_line(error)}") from error
+            stack.callback(cluster.close)
+            cluster.scale(jobs=settings.jobs)
+            client = Client(cluster)
+            stack.callback(client.close)
+        yield client

@@ -1,0 +1,124 @@
+"""Compute back-ends: threads and a local process pool agree; job scripts rendered, never submitted."""
+from __future__ import annotations
+
+import sys
+
+import dask
+import dask.array as da
+import numpy as np
+import pytest
+
+from sensemble.compute import (
+    SCHEDULER_PLACEHOLDER,
+    ComputeError,
+    ComputeSettings,
+    cores_available,
+    open_compute,
+    render_job_script,
+)
+
+
+def weighted_mean_graph():
+    # a small area-weighted mean of the shape the extractor builds: sum(w·x)/sum(w) per chunk, combined
+    rng = np.random.default_rng(5)
+    values = da.from_array(rng.normal(288.0, 10.0, size=(24, 16, 32)), chunks=(6, 16, 32))
+    weights = da.from_array(np.cos(np.deg2rad(np.linspace(-84.375, 84.375, 16)))[:, None] * np.ones(32), chunks=-1)
+    return (values * weights).sum(axis=(1, 2)) / weights.sum()
+
+
+def test_default_workers_are_the_cores_available():
+    assert ComputeSettings().workers == cores_available() >= 1
+
+
+def test_threads_use_the_local_threaded_scheduler():
+    before = dask.config.get("scheduler", None)
+    with open_compute(ComputeSettings(kind="threads", workers=2)) as client:
+        assert client is None
+        assert dask.config.get("scheduler") == "threads"
+        assert dask.config.get("num_workers") == 2
+    assert dask.config.get("scheduler", None) == before  # restored on exit
+
+
+def test_local_cluster_of_two_processes_matches_threads():
+    with open_compute(ComputeSettings(kind="threads", workers=2)) as client:
+        threaded = weighted_mean_graph().compute()
+    with open_compute(ComputeSettings(kind="processes", workers=2, memory_limit="1GiB")) as client:
+        assert client is not None
+        assert len(client.scheduler_info()["workers"]) == 2
+        distributed_result = weighted_mean_graph().compute()
+        cluster = client.cluster
+    assert cluster.status.name == "closed"
+    # same graph, same data: the same numbers bit for bit (reference: numpy on the whole array)
+    np.testing.assert_array_equal(distributed_result, threaded)
+    rng = np.random.default_rng(5)
+    values = rng.normal(288.0, 10.0, size=(24, 16, 32))
+    weights = np.cos(np.deg2rad(np.linspace(-84.375, 84.375, 16)))[:, None] * np.ones(32)
+    np.testing.assert_allclose(threaded, (values * weights).sum(axis=(1, 2)) / weights.sum(), rtol=1e-12)
+
+
+def test_unknown_kind_is_refused():
+    with pytest.raises(ComputeError, match="unknown compute kind 'gpu'"):
+        with open_compute(ComputeSettings(kind="gpu")):
+            pass
+
+
+def test_address_kind_needs_an_address():
+    with pytest.raises(ComputeError, match="needs address"):
+        with open_compute(ComputeSettings(kind="address")):
+            pass
+
+
+def test_missing_jobqueue_says_what_to_install(monkeypatch):
+    monkeypatch.setitem(sys.modules, "dask_jobqueue", None)  # import fails as if not installed
+    with pytest.raises(ComputeError, match=r"pip install 'sensemble\[cluster\]'"):
+        render_job_script(ComputeSettings(kind="slurm", cores=4, memory="8GiB"))
+
+
+def test_job_queue_needs_cores_and_memory():
+    pytest.importorskip("dask_jobqueue")
+    with pytest.raises(ComputeError, match="needs cores and memory"):
+        render_job_script(ComputeSettings(kind="pbs", cores=4))
+
+
+def test_slurm_job_script(tmp_path):
+    pytest.importorskip("dask_jobqueue")
+    settings = ComputeSettings(
+        kind="slurm", queue="short", account="eval-team", cores=8, memory="32GiB", walltime="02:00:00",
+        jobs=3, job_extra_directives=("--exclusive",), job_script_prologue=("source env/bin/activate",),
+        local_directory="$TMPDIR", log_directory=str(tmp_path / "logs"),
+    )
+    lines = render_job_script(settings).splitlines()
+    assert lines[0].startswith("#!")
+    for line in ("#SBATCH -p short", "#SBATCH -A eval-team", "#SBATCH --cpus-per-task=8",
+                 "#SBATCH --mem=32G", "#SBATCH -t 02:00:00", "#SBATCH --exclusive",
+                 "source env/bin/activate", f"#SBATCH -e {tmp_path / 'logs'}/sensemble-worker-%J.err"):
+        assert line in lines, line
+    worker = next(line for line in lines if "dask_worker" in line)
+    assert SCHEDULER_PLACEHOLDER in worker  # rendered without starting a scheduler
+    assert "--nworkers 8" in worker and "--nthreads 1" in worker  # cores / threads_per_worker processes
+    assert "--local-directory $TMPDIR" in worker
+
+
+def test_pbs_job_script():
+    pytest.importorskip("dask_jobqueue")
+    settings = ComputeSettings(
+        kind="pbs", queue="workq", cores=16, memory="64GiB", walltime="04:00:00",
+        threads_per_worker=4, job_extra_directives=("-m n",),
+    )
+    lines = render_job_script(settings).splitlines()
+    for line in ("#PBS -q workq", "#PBS -l select=1:ncpus=16:mem=64GB", "#PBS -l walltime=04:00:00", "#PBS -m n"):
+        assert line in lines, line
+    worker = next(line for line in lines if "dask_worker" in line)
+    assert "--nworkers 4" in worker and "--nthreads 4" in worker
+
+
+def test_job_script_for_a_local_kind_is_refused():
+    with pytest.raises(ComputeError, match="has no job script"):
+        render_job_script(ComputeSettings(kind="processes"))
+
+
+def test_bad_memory_string_is_a_one_line_error():
+    pytest.importorskip("dask_jobqueue")
+    with pytest.raises(ComputeError) as caught:
+        render_job_script(ComputeSettings(kind="slurm", cores=2, memory="lots"))
+    assert "\n" not in str(caught.value) and "lots" in str(caught.value)

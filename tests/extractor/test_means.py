@@ -1,9 +1,12 @@
 """Tests of extractor/means.py: cell areas and area-weighted global means."""
 import dask
 import dask.array as dsa
+import hypothesis.extra.numpy as hnp
+import hypothesis.strategies as st
 import numpy as np
 import pytest
 import xarray as xr
+from hypothesis import given, settings
 
 from extractor.errors import ArchiveError
 from extractor.means import EARTH_RADIUS_M, area_weights, global_mean
@@ -178,3 +181,24 @@ def test_areacella_with_missing_cells_is_refused():
     areas[0, 0] = np.nan
     with pytest.raises(ArchiveError, match="missing"):
         area_weights(ds, areas)
+
+
+@settings(max_examples=25, deadline=None)
+@given(
+    values=hnp.arrays(np.float64, (2, 3, 4), elements=st.floats(-1e3, 1e3) | st.just(np.nan)),
+    weights=hnp.arrays(np.float64, (3, 4), elements=st.floats(1e-3, 1e3)),
+)
+def test_global_mean_matches_numpy_weighted_average(values, weights):
+    # reference library: numpy.average over the present cells of each time step
+    ds = regular_grid(3, 4)
+    w = xr.DataArray(weights, dims=("lat", "lon"), coords={"lat": ds.lat, "lon": ds.lon})
+    da = xr.DataArray(dsa.from_array(values, chunks=(1, -1, -1)), dims=("time", "lat", "lon"),
+                      coords={"lat": ds.lat, "lon": ds.lon}, name="tas")
+    mean = global_mean(da, w).compute().values
+    for t in range(2):
+        present = ~np.isnan(values[t])
+        if present.any():
+            expected = np.average(values[t][present], weights=weights[present])
+            assert mean[t] == pytest.approx(expected, rel=1e-9, abs=1e-9)
+        else:
+            assert np.isnan(mean[t])

@@ -166,14 +166,17 @@ def open_compute(settings: ComputeSettings) -> Iterator[object | None]:
                 ) from error
             stack.callback(client.close)
         elif settings.kind == "processes":
-            cluster = LocalCluster(
-                n_workers=max(1, settings.workers),
-                threads_per_worker=settings.threads_per_worker,
-                processes=True,
-                memory_limit=settings.memory_limit or "auto",
-                dashboard_address=settings.dashboard_address,
-                local_directory=settings.local_directory,
-            )
+            try:
+                cluster = LocalCluster(
+                    n_workers=max(1, settings.workers),
+                    threads_per_worker=settings.threads_per_worker,
+                    processes=True,
+                    memory_limit=settings.memory_limit or "auto",
+                    dashboard_address=settings.dashboard_address,
+                    local_directory=settings.local_directory,
+                )
+            except ValueError as error:  # e.g. a memory limit dask cannot read
+                raise ComputeError(f"compute kind 'processes': {_first_line(error)}") from error
             stack.callback(cluster.close)
             client = Client(cluster)
             stack.callback(client.close)

@@ -89,7 +89,7 @@ _TARGET_CLASSES = {
     "output": OutputSettings,
 }
 # Path-valued keys, resolved against the config's folder; besides these, every key whose
-# name ends in "_file". (compute.local_directory is not one: it names scratch space on the
+# name ends in "_file" and every field annotated as a Path. (compute.local_directory is not one: it names scratch space on the
 # compute nodes, often through an environment variable such as $TMPDIR.)
 PATH_KEYS = {("archive", "root"), ("output", "dir"), ("compute", "log_directory")}
 
@@ -153,12 +153,37 @@ class Interval:
         return f"must be in {left}{_number(self.low)}, {_number(self.high)}{right}"
 
 
+@dataclass(frozen=True)
+class ByteSize:
+    """A memory size dask understands ("4GiB", "500MB")."""
+
+    def problem(self, value) -> str | None:
+        from dask.utils import parse_bytes
+
+        try:
+            if parse_bytes(value) > 0:
+                return None
+        except (ValueError, TypeError):
+            pass
+        return 'must be a memory size such as "4GiB" or "500MB"'
+
+
+@dataclass(frozen=True)
+class Walltime:
+    """A job time limit as batch queues write it: [days-]hours[:minutes[:seconds]]."""
+
+    def problem(self, value) -> str | None:
+        if re.fullmatch(r"(\d+-)?\d+(:[0-5]\d){0,2}", value):
+            return None
+        return 'must be a time limit such as "02:00:00" (hours:minutes:seconds)'
+
+
 POSITIVE = Interval(0)
 NON_NEGATIVE = Interval(0, low_open=False)
 FRACTION = Interval(0, 1, low_open=False)
 
 #: (target, field) → rule; a rule on a tuple-valued field applies to each element.
-RULES: dict[tuple[str, str], Choice | Interval] = {
+RULES: dict[tuple[str, str], Choice | Interval | ByteSize | Walltime] = {
     ("extraction", "drift_order"): Choice((1, 2)),
     ("extraction", "forcing_ratio"): POSITIVE,
     ("extraction", "min_control_years"): POSITIVE,
@@ -182,6 +207,9 @@ RULES: dict[tuple[str, str], Choice | Interval] = {
     ("compute", "threads_per_worker"): POSITIVE,
     ("compute", "cores"): POSITIVE,
     ("compute", "jobs"): POSITIVE,
+    ("compute", "memory"): ByteSize(),
+    ("compute", "memory_limit"): ByteSize(),
+    ("compute", "walltime"): Walltime(),
 }
 
 
@@ -208,6 +236,8 @@ def _describe(hint) -> str:
     args = _union_args(hint)
     if args is not None:
         return " or ".join(_describe(a) for a in args if a is not type(None))
+    if typing.get_origin(hint) is typing.Literal:
+        return "one of " + ", ".join(_toml_value(v) for v in typing.get_args(hint))
     if hint is bool:
         return "true or false"
     if hint is int:
@@ -273,6 +303,10 @@ def _coerce(value, hint):
                 return _coerce(value, arg)
             except _Mismatch:
                 pass
+        raise _Mismatch
+    if typing.get_origin(hint) is typing.Literal:
+        if any(value == allowed and type(value) is type(allowed) for allowed in typing.get_args(hint)):
+            return value
         raise _Mismatch
     if hint is bool:
         if isinstance(value, bool):
@@ -404,10 +438,15 @@ def _read_value(source: str, section: str, key: str, raw, base: Path):
         raise ConfigError(
             f"{source}: [{section}] {key} must be {expected}, got {_toml_value(raw)} ({_kind_of(raw)})"
         ) from None
-    if value is not None and ((section, key) in PATH_KEYS or key.endswith("_file")):
+    if value is not None and _is_path_key(section, key, hint):
         resolved = _resolve(value, base)
         value = resolved if isinstance(value, Path) else str(resolved)
     return value
+
+
+def _is_path_key(section: str, key: str, hint) -> bool:
+    annotated = hint is Path or Path in (_union_args(hint) or ())
+    return annotated or (section, key) in PATH_KEYS or key.endswith("_file")
 
 
 def _resolve(value, base: Path) -> Path:
@@ -571,7 +610,8 @@ def merge_overrides(config: BatchConfig, *, check_paths: bool = True, **cli_valu
         if value is None:
             continue
         section, key = _override_target(flag, keys)
-        if (section, key) in PATH_KEYS or key.endswith("_file"):
+        target, name = keys[section][key]
+        if _is_path_key(section, key, _hints(_TARGET_CLASSES[target])[name]):
             value = str(_resolve(value, Path.cwd()))
         data.setdefault(section, {})[key] = _plain(value)
     return config_from_dict(data, source=f"{config.source} + command line", check_paths=check_paths)

@@ -122,6 +122,8 @@ def test_non_existent_archive_path(tmp_path):
         ('[[prediction.cases]]\necs_eff = 3.0\n', 'needs name = "..."'),
         ('[[prediction.cases]]\nname = "a"\necs_eff = "high"\n', "ecs_eff must be a number or a distribution table"),
         ("root = 'x'\n", "put it under [archive]"),
+        ('[compute]\nmemory = "lots"\n', 'memory must be a memory size such as "4GiB"'),
+        ('[compute]\nwalltime = "2 hours"\n', 'walltime must be a time limit such as "02:00:00"'),
     ],
 )
 def test_ranges_and_cross_checks(tmp_path, text, words):

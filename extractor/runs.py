@@ -17,9 +17,13 @@ import xarray as xr
 from .catalog import RunFiles
 from .errors import ArchiveError
 from .means import area_weights, find_lat_lon, global_mean
+from .settings import ExtractionSettings
 
 #: time chunk of the lazy arrays: ten years of monthly fields
 DEFAULT_CHUNKS = {"time": 120}
+
+#: variables a run must have unless the caller says otherwise (DESIGN.md: tas, rsdt, rsut, rlut)
+REQUIRED_VARIABLES = ExtractionSettings().required_variables
 
 #: CF calendar names (CF conventions §4.4.1), lower case; aliases map to one name
 CALENDARS = {
@@ -44,7 +48,9 @@ FLUX_UNITS = {"W m-2", "W/m2", "W / m2", "Wm-2", "W m -2", "watt m-2", "watts m-
 _IDENTITY = {"source_id": "model", "experiment_id": "experiment_id", "variant_label": "member"}
 
 
-def open_run(run: RunFiles, chunks: dict | None = None) -> xr.Dataset:
+def open_run(
+    run: RunFiles, chunks: dict | None = None, required: tuple[str, ...] = REQUIRED_VARIABLES
+) -> xr.Dataset:
     """Open, check and join the files of one run, lazily.
 
     Parameters
@@ -53,6 +59,9 @@ def open_run(run: RunFiles, chunks: dict | None = None) -> xr.Dataset:
         From `extractor.catalog.scan`.
     chunks : dict, optional
         Dask chunks (default `DEFAULT_CHUNKS`).
+    required : tuple of str
+        Variables the run must have (default `REQUIRED_VARIABLES`; pass
+        ``settings.required_variables`` to follow a config).
 
     Returns
     -------
@@ -71,8 +80,13 @@ def open_run(run: RunFiles, chunks: dict | None = None) -> xr.Dataset:
     """
     chunks = dict(DEFAULT_CHUNKS if chunks is None else chunks)
     flags: list[str] = list(run.flags)
-    if not run.files:
-        raise ArchiveError("run has no variable files", model=run.model, member=run.member, experiment_id=run.experiment_id)
+    missing = [v for v in required if v not in run.files]
+    if missing or not run.files:
+        folder = next((paths[0].parent for paths in run.files.values() if paths), None)
+        raise _error(
+            run, folder, f"no files of required variable(s) {', '.join(missing) or 'any'}",
+            "add the missing variables to the archive or leave this run out",
+        )
 
     series: dict[str, xr.DataArray] = {}
     months: dict[str, np.ndarray] = {}
@@ -148,7 +162,9 @@ def open_run(run: RunFiles, chunks: dict | None = None) -> xr.Dataset:
     return ds
 
 
-def global_mean_series(run: RunFiles, chunks: dict | None = None) -> xr.Dataset:
+def global_mean_series(
+    run: RunFiles, chunks: dict | None = None, required: tuple[str, ...] = REQUIRED_VARIABLES
+) -> xr.Dataset:
     """Lazy float64 global means (dim ``time``) of every variable of a run.
 
     All variables sit in one Dataset so that a single ``dask.compute`` over a batch of runs
@@ -161,7 +177,7 @@ def global_mean_series(run: RunFiles, chunks: dict | None = None) -> xr.Dataset:
         Dimension ``time``; the run's variables (units kept, ``cell_methods`` with ``area: mean``),
         ``time_bnds`` when present; attributes of `open_run` plus ``weights``.
     """
-    ds = open_run(run, chunks=chunks)
+    ds = open_run(run, chunks=chunks, required=required)
     try:
         weights, flag = area_weights(ds, open_area(run))
     except ArchiveError as err:
@@ -365,7 +381,7 @@ def _run_attributes(run: RunFiles, identity: dict, template: xr.Dataset, flags: 
             if value != getattr(run, field_name):
                 # DESIGN.md: the file's own global attributes win over the path
                 mismatches.append(f"{attr}={value} (path: {getattr(run, field_name)})")
-                attrs[{"model": "model", "member": "member", "experiment_id": "experiment_id"}[field_name]] = value
+                attrs[field_name] = value
     if mismatches:
         flags.append("attribute_mismatch")
         attrs["attribute_mismatch"] = "; ".join(mismatches)

@@ -58,7 +58,7 @@ def test_area_weighted_mean_of_a_latitude_dependent_field(tmp_path, cmip):
     # ∫ sin²φ dA / ∫ dA = 1/3 (analytic); on 4 bands of a 4×8 grid the cell-centre values give
     # Σ A_j sin²φ_j / Σ A_j computed here by hand with the spherical-zone areas (handbook formula)
     run = single(tmp_path, cmip, "rlut", values=lambda lat, lon, k: 200.0 + 100.0 * np.sin(np.deg2rad(lat)) ** 2)
-    series = global_mean_series(run).compute()
+    series = global_mean_series(run, required=()).compute()
     edges = np.deg2rad(np.linspace(-90, 90, 5))
     zone = np.diff(np.sin(edges))
     centres = 0.5 * (edges[:-1] + edges[1:])
@@ -69,7 +69,7 @@ def test_area_weighted_mean_of_a_latitude_dependent_field(tmp_path, cmip):
 
 def test_cos_weights_used_and_flagged_without_bounds(tmp_path, cmip):
     run = single(tmp_path, cmip, "tas", lat_lon_bounds=False)
-    series = global_mean_series(run)
+    series = global_mean_series(run, required=())
     assert series.attrs["flags"] == "cos_weights"
     np.testing.assert_allclose(series.tas.values, 287.0, rtol=1e-7)
 
@@ -79,7 +79,7 @@ def test_multiple_files_per_variable_are_joined(tmp_path, cmip):
     cmip.write_run(tmp_path, MODEL, "piControl", nyears=3, files_per_variable=3)
     run = the_run(tmp_path)
     assert len(run.files["tas"]) == 3
-    ds = open_run(run)
+    ds = open_run(run, required=())
     assert ds.sizes["time"] == 36
     years = [t.year for t in ds.time.values]
     assert years[0] == 1850 and years[-1] == 1852
@@ -93,14 +93,14 @@ def test_join_keeps_values_in_time_order(tmp_path, cmip):
         cmip.write_monthly_file(path, "tas", values=np.full(12, 270.0 + year - 1850), start_year=year, nyears=1)
         paths.append(path)
     run = RunFiles(MODEL, MEMBER, "piControl", {"tas": paths}, grid_label="gn")
-    out = annual_means(global_mean_series(run).compute())
+    out = annual_means(global_mean_series(run, required=()).compute())
     np.testing.assert_allclose(out.tas.values, [270.0, 271.0])
 
 
 def test_celsius_converted_to_kelvin(tmp_path, cmip):
     # K = °C + 273.15 (SI definition of the Celsius scale; handbook value)
     run = single(tmp_path, cmip, "tas", values=14.0, units="degC")
-    series = global_mean_series(run).compute()
+    series = global_mean_series(run, required=()).compute()
     np.testing.assert_allclose(series.tas.values, 287.15, rtol=1e-7)
     assert series.tas.attrs["units"] == "K"
 
@@ -108,14 +108,14 @@ def test_celsius_converted_to_kelvin(tmp_path, cmip):
 @pytest.mark.parametrize("units", ["W m-2", "W/m2", "W m^-2", "W.m-2", "W m**-2"])
 def test_flux_unit_spellings_accepted(tmp_path, cmip, units):
     run = single(tmp_path, cmip, "rsut", units=units)
-    assert open_run(run).rsut.attrs["units"] == "W m-2"
+    assert open_run(run, required=()).rsut.attrs["units"] == "W m-2"
 
 
 @pytest.mark.parametrize("var, units", [("rsut", "W"), ("rlut", None), ("rsdt", "erg cm-2 s-1"), ("tas", "C"), ("tas", None)])
 def test_wrong_or_missing_units_refused(tmp_path, cmip, var, units):
     run = single(tmp_path, cmip, var, units=units)
     with pytest.raises(ArchiveError) as err:
-        open_run(run)
+        open_run(run, required=())
     message = str(err.value)
     assert MODEL in message and run.files[var][0].name in message and "units" in message
     assert "\n" not in message
@@ -126,7 +126,7 @@ def test_gap_between_files_detected(tmp_path, cmip):
     b = cmip.write_monthly_file(tmp_path / "tas_Amon_TESTMODEL-1_piControl_r1i1p1f1_gn_185201-185212.nc", "tas", start_year=1852, nyears=1)
     run = RunFiles(MODEL, MEMBER, "piControl", {"tas": [a, b]})
     with pytest.raises(ArchiveError, match="gap of 12 month"):
-        open_run(run)
+        open_run(run, required=())
 
 
 def test_overlap_between_files_detected(tmp_path, cmip):
@@ -134,7 +134,7 @@ def test_overlap_between_files_detected(tmp_path, cmip):
     b = cmip.write_monthly_file(tmp_path / "tas_Amon_TESTMODEL-1_piControl_r1i1p1f1_gn_185101-185212.nc", "tas", start_year=1851, nyears=2)
     run = RunFiles(MODEL, MEMBER, "piControl", {"tas": [a, b]})
     with pytest.raises(ArchiveError, match="overlaps .*185001-185112.nc by 12 month"):
-        open_run(run)
+        open_run(run, required=())
 
 
 @pytest.mark.parametrize(
@@ -148,7 +148,7 @@ def test_overlap_between_files_detected(tmp_path, cmip):
 def test_bad_time_axis_within_a_file_detected(tmp_path, cmip, months, problem):
     run = single(tmp_path, cmip, "tas", months=months)
     with pytest.raises(ArchiveError, match=problem):
-        open_run(run)
+        open_run(run, required=())
 
 
 def test_non_monthly_steps_detected(tmp_path, cmip):
@@ -161,13 +161,13 @@ def test_non_monthly_steps_detected(tmp_path, cmip):
         nc["time"][:] = [0.5, 1.5, 2.5]
     run = RunFiles(MODEL, MEMBER, "piControl", {"tas": [path]})
     with pytest.raises(ArchiveError, match="not monthly"):
-        open_run(run)
+        open_run(run, required=())
 
 
 def test_missing_calendar_defaults_to_standard_with_flag(tmp_path, cmip):
     # CF conventions §4.4.1: no calendar attribute means the standard calendar
     run = single(tmp_path, cmip, "tas", calendar=None)
-    series = global_mean_series(run)
+    series = global_mean_series(run, required=())
     assert series.attrs["calendar"] == "standard"
     assert "calendar_defaulted" in series.attrs["flags"].split(";")
 
@@ -181,13 +181,13 @@ def test_unknown_calendar_refused(tmp_path, cmip):
         nc["time"].calendar = "lunar"
     run = RunFiles(MODEL, MEMBER, "piControl", {"tas": [path]})
     with pytest.raises(ArchiveError, match="unknown calendar 'lunar'"):
-        open_run(run)
+        open_run(run, required=())
 
 
 @pytest.mark.parametrize("calendar", ["noleap", "360_day", "all_leap", "standard", "gregorian", "proleptic_gregorian", "julian"])
 def test_every_cf_calendar_opens_and_gives_annual_means(tmp_path, cmip, calendar):
     run = single(tmp_path, cmip, "tas", calendar=calendar, values=lambda lat, lon, k: 280.0 + k)
-    annual = annual_means(global_mean_series(run).compute())
+    annual = annual_means(global_mean_series(run, required=()).compute())
     assert list(annual.year.values) == [1850, 1851]
     assert annual.attrs["calendar"] in {calendar, "standard"}
     # month values 0…11 weighted by month length: the mean lies within a day-weighting of 5.5
@@ -199,14 +199,14 @@ def test_grids_differing_between_variables_refused(tmp_path, cmip):
     b = cmip.write_monthly_file(tmp_path / "rlut_Amon_TESTMODEL-1_piControl_r1i1p1f1_gn_185001-185112.nc", "rlut", nlat=6)
     run = RunFiles(MODEL, MEMBER, "piControl", {"tas": [a], "rlut": [b]})
     with pytest.raises(ArchiveError, match="grid of rlut differs from that of tas"):
-        open_run(run)
+        open_run(run, required=())
 
 
 def test_variables_trimmed_to_common_period_with_flag(tmp_path, cmip):
     a = cmip.write_monthly_file(tmp_path / "tas_Amon_TESTMODEL-1_piControl_r1i1p1f1_gn_185001-185212.nc", "tas", nyears=3)
     b = cmip.write_monthly_file(tmp_path / "rlut_Amon_TESTMODEL-1_piControl_r1i1p1f1_gn_185001-185112.nc", "rlut", nyears=2)
     run = RunFiles(MODEL, MEMBER, "piControl", {"tas": [a], "rlut": [b]})
-    ds = open_run(run)
+    ds = open_run(run, required=())
     assert ds.sizes["time"] == 24
     assert "time_trimmed" in ds.attrs["flags"]
 
@@ -214,7 +214,7 @@ def test_variables_trimmed_to_common_period_with_flag(tmp_path, cmip):
 def test_attributes_win_over_path_with_flag(tmp_path, cmip):
     attrs = {"source_id": "TESTMODEL-9", "experiment_id": "piControl", "variant_label": MEMBER}
     run = single(tmp_path, cmip, "tas", attrs=attrs)
-    ds = open_run(run)
+    ds = open_run(run, required=())
     assert ds.attrs["model"] == "TESTMODEL-9"
     assert "attribute_mismatch" in ds.attrs["flags"].split(";")
     assert "TESTMODEL-1" in ds.attrs["attribute_mismatch"]
@@ -227,7 +227,7 @@ def test_files_disagreeing_on_identity_refused(tmp_path, cmip):
                                 start_year=1851, attrs={"source_id": "TESTMODEL-2"})
     run = RunFiles(MODEL, MEMBER, "piControl", {"tas": [a, b]})
     with pytest.raises(ArchiveError, match="source_id"):
-        open_run(run)
+        open_run(run, required=())
 
 
 def test_corrupt_file_refused_with_one_line_message(tmp_path):
@@ -235,10 +235,18 @@ def test_corrupt_file_refused_with_one_line_message(tmp_path):
     path.write_bytes(b"this is not a netCDF file" * 10)
     run = RunFiles(MODEL, MEMBER, "piControl", {"tas": [path]})
     with pytest.raises(ArchiveError) as err:
-        open_run(run)
+        open_run(run, required=())
     message = str(err.value)
     assert message.startswith(f"model {MODEL} member {MEMBER} piControl: file {path}: cannot be read")
     assert "\n" not in message
+
+
+def test_run_without_a_required_variable_refused(tmp_path, cmip):
+    cmip.write_run(tmp_path, MODEL, "piControl", variables=("tas", "rsdt", "rsut"), nyears=1)
+    run = the_run(tmp_path)
+    with pytest.raises(ArchiveError, match="required variable.*rlut"):
+        global_mean_series(run)
+    assert set(open_run(run, required=("tas",)).data_vars) >= {"tas", "rsdt", "rsut"}
 
 
 def test_file_without_its_variable_refused(tmp_path, cmip):
@@ -246,7 +254,7 @@ def test_file_without_its_variable_refused(tmp_path, cmip):
     cmip.write_monthly_file(path, "ts")
     run = RunFiles(MODEL, MEMBER, "piControl", {"tas": [path]})
     with pytest.raises(ArchiveError, match="has no variable 'tas'"):
-        open_run(run)
+        open_run(run, required=())
 
 
 def test_missing_cells_excluded_from_file_means(tmp_path, cmip):
@@ -256,7 +264,7 @@ def test_missing_cells_excluded_from_file_means(tmp_path, cmip):
         return np.where((lat < 0) & (lon < 180), np.nan, out)
 
     run = single(tmp_path, cmip, "tas", values=values)
-    series = global_mean_series(run).compute()
+    series = global_mean_series(run, required=()).compute()
     # per hemisphere the area is equal; the south keeps half its cells: (300·2 + 200·1) / 3
     np.testing.assert_allclose(series.tas.values, (300.0 * 2 + 200.0) / 3, rtol=1e-9)
 
@@ -265,7 +273,7 @@ def test_areacella_in_wrong_units_names_its_file(tmp_path, cmip):
     run = single(tmp_path, cmip, "tas")
     run.areacella = cmip.write_areacella(tmp_path / "areacella_fx_TESTMODEL-1_piControl_r1i1p1f1_gn.nc", units="km2")
     with pytest.raises(ArchiveError) as err:
-        global_mean_series(run)
+        global_mean_series(run, required=())
     assert "areacella_fx_TESTMODEL-1" in str(err.value) and "not m2" in str(err.value)
 
 

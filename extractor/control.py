@@ -175,7 +175,8 @@ def drift_corrected(
         From :func:`branch_year`.
     order : {1, 2}
     min_years : int
-        Fewest control years in the parallel segment that still allow a fit.
+        Fewest control years that still allow a fit; an experiment shorter than this has its drift
+        fitted over the first ``min_years`` control years from the branch.
 
     Returns
     -------
@@ -198,7 +199,9 @@ def drift_corrected(
     control_years = _years(control, "control")
     n = calendar_years.size
     parallel = np.arange(branch_year, branch_year + n)
-    segment = control.sel(year=slice(int(parallel[0]), int(parallel[-1])))
+    # a short experiment still gets a drift fitted over at least `min_years` of control where they exist
+    span = max(n, int(min_years))
+    segment = control.sel(year=slice(int(branch_year), int(branch_year + span - 1)))
     available = segment.sizes["year"]
     who = _describe(experiment.attrs)
     if available < max(int(min_years), order + 1):
@@ -208,7 +211,7 @@ def drift_corrected(
             f"at least {min_years} are needed for the drift fit"
         )
     flags = []
-    if available < n:
+    if available < min(n, span) or segment["year"].values[-1] < parallel[-1]:
         flags.append(CONTROL_SHORT)
     shared = [name for name in experiment.data_vars if name in control.data_vars]
     flags += [f"control_lacks_{name}" for name in experiment.data_vars if name not in control.data_vars]

@@ -20,6 +20,7 @@ out to keep a default of none. Relative paths are taken from the config file's f
 from __future__ import annotations
 
 import dataclasses
+import datetime
 import difflib
 import math
 import os
@@ -276,6 +277,8 @@ def _kind_of(value) -> str:
         return "an array"
     if isinstance(value, dict):
         return "a table"
+    if isinstance(value, (datetime.date, datetime.time)):
+        return f"a {type(value).__name__}"
     return type(value).__name__
 
 
@@ -751,4 +754,6 @@ def _toml_value(value) -> str:
         return "[" + ", ".join(_toml_value(v) for v in value) + "]"
     if isinstance(value, dict):
         return "{" + ", ".join(f"{_toml_key(str(k))} = {_toml_value(v)}" for k, v in value.items()) + "}"
+    if isinstance(value, (datetime.date, datetime.time)):  # TOML dates and times (never a valid setting)
+        return value.isoformat()
     raise TypeError(f"no TOML form for {type(value).__name__}")

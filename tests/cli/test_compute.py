@@ -47,9 +47,15 @@ def test_local_cluster_of_two_processes_matches_threads():
         assert len(client.scheduler_info()["workers"]) == 2
         distributed_result = weighted_mean_graph().compute()
         cluster = client.cluster
+        # kind "address": a client of a scheduler that is already running (here, this one)
+        with open_compute(ComputeSettings(kind="address", address=cluster.scheduler_address)) as other:
+            assert other is not client
+            via_address = weighted_mean_graph().compute()
+        assert cluster.status.name == "running"  # closing an "address" client leaves the scheduler up
     assert cluster.status.name == "closed"
     # same graph, same data: the same numbers bit for bit (reference: numpy on the whole array)
     np.testing.assert_array_equal(distributed_result, threaded)
+    np.testing.assert_array_equal(via_address, threaded)
     rng = np.random.default_rng(5)
     values = rng.normal(288.0, 10.0, size=(24, 16, 32))
     weights = np.cos(np.deg2rad(np.linspace(-84.375, 84.375, 16)))[:, None] * np.ones(32)

@@ -130,6 +130,11 @@ def test_ranges_and_cross_checks(tmp_path, text, words):
     assert words in error_of(tmp_path, text, check_paths=False)
 
 
+def test_a_date_where_a_number_belongs(tmp_path):
+    message = error_of(tmp_path, "[extraction]\nseed = 2026-12-02\n")
+    assert "seed must be an integer, got 2026-12-02 (a date)" in message
+
+
 def test_invalid_toml_is_a_config_error(tmp_path):
     assert "not valid TOML" in error_of(tmp_path, "[extraction\n")
 

@@ -372,7 +372,7 @@ def extract(
             if run.label in lazy or run.label in broken:
                 continue
             try:
-                lazy[run.label] = global_mean_series(run)
+                lazy[run.label] = global_mean_series(run, required=settings.required_variables)
             except ArchiveError as err:
                 broken[run.label] = err
             except Exception as err:  # noqa: BLE001 — recorded, never hidden

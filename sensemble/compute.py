@@ -195,3 +195,43 @@ def open_compute(settings: ComputeSettings) -> Iterator[object | None]:
             client = Client(cluster)
             stack.callback(client.close)
         yield client
+
+
+def active_client():
+    """The distributed client dask would compute on now, or None (a local scheduler)."""
+    try:
+        from distributed import default_client
+    except ImportError:
+        return None
+    try:
+        return default_client()
+    except ValueError:  # no client
+        return None
+
+
+def compute_batch(*collections, progress: bool = True):
+    """`dask.compute(*collections)` in one graph, with a progress bar that suits the back-end.
+
+    dask's local `ProgressBar` sees nothing of a distributed cluster, so under a client the
+    graph is submitted as futures and followed with distributed's terminal progress bar.
+    Raises the first task's exception, like `dask.compute`.
+    """
+    client = active_client()
+    if client is None:
+        if not progress:
+            return dask.compute(*collections)
+        from dask.diagnostics import ProgressBar
+
+        with ProgressBar(minimum=1.0):
+            return dask.compute(*collections)
+    futures = client.compute(list(collections))
+    try:
+        if progress:
+            from distributed import progress as follow
+
+            follow(futures, notebook=False)
+        return tuple(client.gather(futures))
+    finally:
+        for future in futures:
+            future.release()
+

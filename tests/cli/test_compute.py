@@ -12,6 +12,8 @@ from sensemble.compute import (
     SCHEDULER_PLACEHOLDER,
     ComputeError,
     ComputeSettings,
+    active_client,
+    compute_batch,
     cores_available,
     open_compute,
     render_job_script,
@@ -41,11 +43,14 @@ def test_threads_use_the_local_threaded_scheduler():
 
 def test_local_cluster_of_two_processes_matches_threads():
     with open_compute(ComputeSettings(kind="threads", workers=2)) as client:
+        assert active_client() is None
         threaded = weighted_mean_graph().compute()
+        (batched,) = compute_batch(weighted_mean_graph(), progress=False)
     with open_compute(ComputeSettings(kind="processes", workers=2, memory_limit="1GiB")) as client:
-        assert client is not None
+        assert client is not None and active_client() is client
         assert len(client.scheduler_info()["workers"]) == 2
         distributed_result = weighted_mean_graph().compute()
+        (batched_on_cluster, total) = compute_batch(weighted_mean_graph(), weighted_mean_graph().sum(), progress=True)
         cluster = client.cluster
         # kind "address": a client of a scheduler that is already running (here, this one)
         with open_compute(ComputeSettings(kind="address", address=cluster.scheduler_address)) as other:
@@ -56,6 +61,10 @@ def test_local_cluster_of_two_processes_matches_threads():
     # same graph, same data: the same numbers bit for bit (reference: numpy on the whole array)
     np.testing.assert_array_equal(distributed_result, threaded)
     np.testing.assert_array_equal(via_address, threaded)
+    np.testing.assert_array_equal(batched, threaded)
+    np.testing.assert_array_equal(batched_on_cluster, threaded)
+    assert total == pytest.approx(threaded.sum(), rel=1e-12)
+    assert active_client() is None  # the cluster's client is gone with the block
     rng = np.random.default_rng(5)
     values = rng.normal(288.0, 10.0, size=(24, 16, 32))
     weights = np.cos(np.deg2rad(np.linspace(-84.375, 84.375, 16)))[:, None] * np.ones(32)
@@ -128,3 +137,13 @@ def test_bad_memory_string_is_a_one_line_error():
     with pytest.raises(ComputeError) as caught:
         render_job_script(ComputeSettings(kind="slurm", cores=2, memory="lots"))
     assert "\n" not in str(caught.value) and "lots" in str(caught.value)
+
+
+def test_compute_batch_raises_the_task_error():
+    def fail(block):
+        raise ArithmeticError("bad block")
+
+    broken = da.ones(4, chunks=2).map_blocks(fail, dtype=float)
+    with open_compute(ComputeSettings(kind="threads", workers=1)):
+        with pytest.raises(ArithmeticError, match="bad block"):
+            compute_batch(broken, progress=True)

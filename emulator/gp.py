@@ -1,0 +1,309 @@
+"""`PathwayEmulator`: warming pathways as a function of sensitivity inputs, with calibrated uncertainty.
+
+Mean: the two-layer response (emulator.ebm) at each input, with ensemble-typical heat capacities and
+λ = F2x / ecs_eff. Residuals from that mean are reduced to principal components (SVD) keeping at least
+`variance_kept` of their variance; one scikit-learn `GaussianProcessRegressor` per component (Matérn 5/2
+with one length scale per standardised input, plus white noise; `normalize_y`). The predictive variance
+of a year is Σ_j σ_j² v_jt² (GP variances through the components) + the variance of the discarded
+components + optionally internal variability (AR(1) fitted to the control runs).
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import warnings
+
+from scipy.signal import lfilter
+from sklearn.base import BaseEstimator
+from sklearn.exceptions import ConvergenceWarning
+from sklearn.gaussian_process import GaussianProcessRegressor
+from sklearn.gaussian_process.kernels import RBF, ConstantKernel, Matern, WhiteKernel
+from threadpoolctl import threadpool_limits  # installed with scikit-learn
+
+from .ebm import TwoLayerParameters, integrate
+from .errors import EmulatorInputError
+
+__all__ = ["PathwayEmulator", "PhysicsMean", "make_kernel", "internal_variability_from_control", "MEAN_PARAMETERS"]
+
+#: Keys of `mean_params`: the ensemble-typical two-layer parameters of the physics mean.
+MEAN_PARAMETERS = ("f2x", "heat_capacity", "deep_heat_capacity", "exchange", "efficacy")
+KERNELS = ("matern52", "rbf")
+
+
+def make_kernel(kind: str, n_inputs: int):
+    """Amplitude × (Matérn ν = 5/2 or RBF, one length scale per input) + white noise, on standardised inputs."""
+    if kind == "matern52":
+        shape = Matern(length_scale=np.ones(n_inputs), length_scale_bounds=(0.3, 1e2), nu=2.5)
+    elif kind == "rbf":
+        shape = RBF(length_scale=np.ones(n_inputs), length_scale_bounds=(0.3, 1e2))
+    else:
+        raise EmulatorInputError(f"unknown kernel {kind!r}", hint=f"choose one of {', '.join(KERNELS)}")
+    return ConstantKernel(1.0, (1e-3, 1e3)) * shape + WhiteKernel(1e-2, (1e-8, 1e1))
+
+
+def internal_variability_from_control(series) -> tuple[float, float]:
+    """(sd, lag-1 autocorrelation) of annual control residuals, pooled over runs (AR(1); common practice).
+
+    The variance is the mean of the runs' variances; the autocorrelation the mean of theirs, kept in [0, 0.95].
+    """
+    variances, lags = [], []
+    for s in series:
+        if s is None:
+            continue
+        s = np.asarray(s, float)
+        s = s[np.isfinite(s)] - np.nanmean(s)
+        if len(s) < 10:
+            continue
+        variances.append(s.var(ddof=1))
+        lags.append(np.sum(s[1:] * s[:-1]) / np.sum(s * s))
+    if not variances:
+        raise EmulatorInputError("no control series of at least 10 years for the internal variability")
+    return float(np.sqrt(np.mean(variances))), float(np.clip(np.mean(lags), 0.0, 0.95))
+
+
+@dataclass(frozen=True)
+class PhysicsMean:
+    """Two-layer response to `forcing` at λ = f2x / ECS (ECS = column `ecs_index` of X); zero if `forcing` is None."""
+
+    n_years: int
+    forcing: np.ndarray | None = None
+    f2x: float = np.nan
+    heat_capacity: float = np.nan
+    deep_heat_capacity: float = np.nan
+    exchange: float = np.nan
+    efficacy: float = 1.0
+    ecs_index: int = 0
+
+    def __call__(self, X) -> np.ndarray:
+        X = np.atleast_2d(np.asarray(X, float))
+        if self.forcing is None:
+            return np.zeros((X.shape[0], self.n_years))
+        ecs = X[:, self.ecs_index]
+        params = TwoLayerParameters(self.f2x / ecs, self.heat_capacity, self.deep_heat_capacity,
+                                    self.exchange, self.efficacy)
+        return integrate(self.forcing, params)[0]
+
+
+class PathwayEmulator(BaseEstimator):
+    """Gaussian-process emulator of annual warming pathways with a two-layer physics mean.
+
+    Parameters
+    ----------
+    inputs : names of the input columns (sensitivity-table columns); must contain `ecs_eff` for the physics mean
+    physics_mean : use the two-layer mean (needs `forcing` and `mean_params` in `fit`); else the ensemble mean
+    variance_kept : smallest fraction of the residual variance the principal components keep
+    max_components : upper limit on the number of components
+    kernel : "matern52" or "rbf"
+    internal_variability : None, or (sd in K, lag-1 autocorrelation) of annual internal variability added
+        to predictions as AR(1) noise (see `internal_variability_from_control`)
+    n_restarts_optimizer : extra random starts of each GP's hyperparameter search
+    random_state : seed of the GP optimiser restarts
+
+    Attributes
+    ----------
+    mean_model_ : PhysicsMean
+    residual_mean_ : (n_years,) ensemble mean of the residuals from the physics mean
+    components_ : (n_components, n_years) principal directions of the residuals (orthonormal rows)
+    scores_ : (n_runs, n_components) training coordinates on them (the GP targets)
+    explained_variance_ratio_ : (n_components,) share of the residual variance of each kept component
+    truncated_components_, truncated_scale_ : discarded directions and the sd of their scores
+    truncation_variance_ : (n_years,) variance left out by the truncation
+    gps_ : list of fitted GaussianProcessRegressor, one per component
+    x_mean_, x_scale_ : input standardisation
+    X_train_, Y_train_ : training data
+
+    Example
+    -------
+    >>> import numpy as np
+    >>> X = np.linspace(2, 5, 8)[:, None]; Y = np.outer(1 / X[:, 0], np.arange(50.0))
+    >>> em = PathwayEmulator(physics_mean=False).fit(X, Y)
+    >>> mean, sd = em.predict([[3.5]], return_std=True)
+    >>> mean.shape
+    (1, 50)
+    """
+
+    def __init__(self, inputs=("ecs_eff",), physics_mean=True, variance_kept=0.99, max_components=10,
+                 kernel="matern52", internal_variability=None, n_restarts_optimizer=1, random_state=0):
+        self.inputs = inputs
+        self.physics_mean = physics_mean
+        self.variance_kept = variance_kept
+        self.max_components = max_components
+        self.kernel = kernel
+        self.internal_variability = internal_variability
+        self.n_restarts_optimizer = n_restarts_optimizer
+        self.random_state = random_state
+
+    # -- fitting -----------------------------------------------------------------------------------------
+    def _validate(self, X, Y, forcing, mean_params):
+        inputs = tuple(self.inputs)
+        X = np.asarray(X, float)
+        if X.ndim == 1:
+            X = X[:, None]
+        Y = np.atleast_2d(np.asarray(Y, float))
+        if X.shape[1] != len(inputs):
+            raise EmulatorInputError(f"X has {X.shape[1]} columns but inputs are {inputs}")
+        if X.shape[0] != Y.shape[0]:
+            raise EmulatorInputError(f"X has {X.shape[0]} runs, Y has {Y.shape[0]}")
+        if X.shape[0] < 3:
+            raise EmulatorInputError(f"{X.shape[0]} training runs; at least 3 are needed")
+        if not (np.all(np.isfinite(X)) and np.all(np.isfinite(Y))):
+            raise EmulatorInputError("X and Y must be finite")
+        if not 0.0 < float(self.variance_kept) <= 1.0:
+            raise EmulatorInputError(f"variance_kept must be in (0, 1], got {self.variance_kept}")
+        if int(self.max_components) < 1:
+            raise EmulatorInputError(f"max_components must be ≥ 1, got {self.max_components}")
+        if self.kernel not in KERNELS:
+            raise EmulatorInputError(f"unknown kernel {self.kernel!r}", hint=f"choose one of {', '.join(KERNELS)}")
+        iv = self.internal_variability
+        if iv is not None and (len(iv) != 2 or iv[0] < 0 or not 0 <= iv[1] < 1):
+            raise EmulatorInputError(f"internal_variability must be (sd ≥ 0, 0 ≤ lag-1 < 1), got {iv}")
+        if self.physics_mean:
+            if "ecs_eff" not in inputs:
+                raise EmulatorInputError("the physics mean needs 'ecs_eff' among the inputs",
+                                         hint="add it or set physics_mean=False")
+            if forcing is None or mean_params is None:
+                raise EmulatorInputError("the physics mean needs forcing= and mean_params=")
+            forcing = np.asarray(forcing, float)
+            if forcing.shape != (Y.shape[1],):
+                raise EmulatorInputError(f"forcing has {forcing.shape} values for {Y.shape[1]} years")
+            missing = [k for k in MEAN_PARAMETERS if k not in mean_params]
+            if missing:
+                raise EmulatorInputError(f"mean_params lacks {', '.join(missing)}")
+            if np.any(X[:, inputs.index("ecs_eff")] <= 0):
+                raise EmulatorInputError("ecs_eff must be > 0 for the physics mean")
+        return X, Y, forcing
+
+    def fit(self, X, Y, forcing=None, mean_params=None):
+        """Fit to inputs X (n_runs, n_inputs) and pathways Y (n_runs, n_years); returns self.
+
+        forcing : (n_years,) effective radiative forcing of the scenario (W m-2), for the physics mean
+        mean_params : mapping with `f2x`, `heat_capacity`, `deep_heat_capacity`, `exchange`, `efficacy`
+        """
+        X, Y, forcing = self._validate(X, Y, forcing, mean_params)
+        inputs = tuple(self.inputs)
+        n, n_years = Y.shape
+        self.X_train_, self.Y_train_ = X.copy(), Y.copy()
+        if self.physics_mean:
+            self.mean_model_ = PhysicsMean(n_years, forcing.copy(), *(float(mean_params[k]) for k in MEAN_PARAMETERS),
+                                           ecs_index=inputs.index("ecs_eff"))
+        else:
+            self.mean_model_ = PhysicsMean(n_years)
+        self.x_mean_ = X.mean(axis=0)
+        scale = X.std(axis=0)
+        self.x_scale_ = np.where(scale > 0, scale, 1.0)
+        residuals = Y - self.mean_model_(X)
+        self.residual_mean_ = residuals.mean(axis=0)
+        centred = residuals - self.residual_mean_
+        u, s, vt = np.linalg.svd(centred, full_matrices=False)
+        rank = int(np.sum(s > 1e-12 * max(s[0], 1e-300))) if s.size else 0
+        total = np.sum(s[:rank] ** 2)
+        if rank == 0:
+            k = 1  # no residual variance: one (zero) component keeps the machinery uniform
+            ratio = np.zeros(1)
+        else:
+            ratio = s[:rank] ** 2 / total
+            k = int(np.searchsorted(np.cumsum(ratio), float(self.variance_kept) - 1e-12) + 1)
+            k = max(1, min(k, int(self.max_components), rank))
+        self.n_components_ = k
+        self.components_ = vt[:k].copy()
+        self.scores_ = u[:, :k] * s[:k]
+        self.singular_values_ = s.copy()
+        self.explained_variance_ratio_ = ratio[:k].copy()
+        self.truncated_components_ = vt[k:rank].copy()
+        self.truncated_scale_ = s[k:rank] / np.sqrt(max(n - 1, 1))
+        self.truncation_variance_ = (self.truncated_scale_ ** 2) @ (self.truncated_components_ ** 2) \
+            if rank > k else np.zeros(n_years)
+        self.internal_variability_ = None if self.internal_variability is None else \
+            (float(self.internal_variability[0]), float(self.internal_variability[1]))
+        Xs = self._standardise(X)
+        # Tiny matrices: threaded BLAS only adds overhead (measured ×2 on 2 cores).
+        with threadpool_limits(limits=1, user_api="blas"), warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always", ConvergenceWarning)
+            self.gps_ = [self._fit_gp(Xs, self.scores_[:, j], j) for j in range(k)]
+        # hyperparameters at a bound are worth knowing, not worth a console full of warnings
+        self.fit_warnings_ = sorted({str(w.message).split(".")[0] for w in caught
+                                     if issubclass(w.category, ConvergenceWarning)})
+        return self
+
+    def _fit_gp(self, Xs, z, j, kernel=None):
+        gp = GaussianProcessRegressor(
+            kernel=kernel if kernel is not None else make_kernel(self.kernel, Xs.shape[1]),
+            normalize_y=True,
+            n_restarts_optimizer=int(self.n_restarts_optimizer) if kernel is None else 0,
+            optimizer="fmin_l_bfgs_b" if kernel is None else None,
+            random_state=None if self.random_state is None else int(self.random_state) + j,
+        )
+        return gp.fit(Xs, z)
+
+    def _standardise(self, X):
+        X = np.asarray(X, float)
+        if X.ndim == 1:
+            X = X.reshape(-1, len(self.x_mean_))
+        if X.shape[1] != len(self.x_mean_):
+            raise EmulatorInputError(f"X has {X.shape[1]} columns, the emulator {len(self.x_mean_)} inputs {tuple(self.inputs)}")
+        return (X - self.x_mean_) / self.x_scale_
+
+    # -- prediction ---------------------------------------------------------------------------------------
+    def _check_fitted(self):
+        if not hasattr(self, "gps_"):
+            raise EmulatorInputError("this PathwayEmulator is not fitted yet; call fit first")
+
+    def component_predictions(self, X):
+        """GP mean and sd of each component at X: two arrays (n_cases, n_components)."""
+        self._check_fitted()
+        Xs = self._standardise(X)
+        mu = np.empty((Xs.shape[0], self.n_components_))
+        sd = np.empty_like(mu)
+        for j, gp in enumerate(self.gps_):
+            mu[:, j], sd[:, j] = gp.predict(Xs, return_std=True)
+        return mu, sd
+
+    def _base(self, X, mu):
+        X = np.asarray(X, float).reshape(-1, len(self.x_mean_))
+        return self.mean_model_(X) + self.residual_mean_ + mu @ self.components_
+
+    @property
+    def internal_variance_(self) -> float:
+        return 0.0 if self.internal_variability_ is None else self.internal_variability_[0] ** 2
+
+    def predict(self, X, return_std: bool = False):
+        """Mean pathway (n_cases, n_years) at inputs X; with `return_std` also the predictive sd per year."""
+        mu, sd = self.component_predictions(X)
+        mean = self._base(X, mu)
+        if not return_std:
+            return mean
+        var = (sd ** 2) @ (self.components_ ** 2) + self.truncation_variance_ + self.internal_variance_
+        return mean, np.sqrt(var)
+
+    def sample_paths(self, X, n_samples: int = 1000, random_state=None, chunk: int | None = None):
+        """Random pathways from the predictive distribution: array (n_cases, n_samples, n_years).
+
+        Components are drawn from their GP marginals at each input; discarded components from their training
+        spread; internal variability as AR(1) noise. Correlations between years are kept, so derived
+        quantities (decadal means, crossing years) are sampled consistently.
+        """
+        rng = np.random.default_rng(random_state)
+        mu, sd = self.component_predictions(X)
+        base = self._base(X, mu)
+        n_cases, n_years = base.shape
+        out = np.empty((n_cases, int(n_samples), n_years))
+        for c in range(n_cases):
+            z = mu[c] + sd[c] * rng.standard_normal((int(n_samples), self.n_components_))
+            paths = out[c]
+            np.matmul(z - mu[c], self.components_, out=paths)
+            paths += base[c]
+            if len(self.truncated_scale_):
+                xi = rng.standard_normal((int(n_samples), len(self.truncated_scale_))) * self.truncated_scale_
+                paths += xi @ self.truncated_components_
+            if self.internal_variability_ is not None and self.internal_variability_[0] > 0:
+                paths += ar1_noise(rng, (int(n_samples), n_years), *self.internal_variability_)
+        return out
+
+
+def ar1_noise(rng, shape, sd, phi):
+    """Stationary AR(1) noise along the last axis with marginal sd `sd` and lag-1 autocorrelation `phi`."""
+    e = rng.standard_normal(shape)
+    e[..., 1:] *= sd * np.sqrt(1.0 - phi * phi)
+    e[..., 0] *= sd
+    return lfilter([1.0], [1.0, -phi], e, axis=-1)

@@ -1,0 +1,127 @@
+"""Saving and loading a fitted `PathwayEmulator` as NetCDF — no pickle.
+
+The file holds the training data, the constructor parameters, the learned arrays (standardisation,
+components, scores, truncation) and each GP's fitted kernel hyperparameters (log-scale `theta`).
+Loading refits each GP with the optimiser switched off at those hyperparameters on the same arrays,
+which reproduces the original predictions bit for bit. A SHA-256 checksum over every variable and
+attribute, and a format version, make a tampered or incompatible file fail with a clear message.
+"""
+from __future__ import annotations
+
+import hashlib
+import json
+from pathlib import Path
+
+import numpy as np
+import xarray as xr
+
+from .atomic import atomic_path
+from .errors import EmulatorInputError
+from .gp import PathwayEmulator, PhysicsMean, make_kernel
+
+__all__ = ["save_emulator", "load_emulator", "FORMAT", "FORMAT_VERSION"]
+
+FORMAT = "sensemble-pathway-emulator"
+FORMAT_VERSION = 1
+_ARRAYS = {  # attribute → dims
+    "X_train_": ("run", "input"), "Y_train_": ("run", "year"), "x_mean_": ("input",), "x_scale_": ("input",),
+    "residual_mean_": ("year",), "components_": ("component", "year"), "scores_": ("run", "component"),
+    "singular_values_": ("singular",), "explained_variance_ratio_": ("component",),
+    "truncated_components_": ("truncated", "year"), "truncated_scale_": ("truncated",),
+    "truncation_variance_": ("year",),
+}
+
+
+def _checksum(ds: xr.Dataset) -> str:
+    h = hashlib.sha256()
+    attrs = {k: v for k, v in ds.attrs.items() if k != "checksum_sha256"}
+    h.update(json.dumps({k: str(v) for k, v in attrs.items()}, sort_keys=True).encode())
+    for name in sorted(ds.variables):
+        values = np.ascontiguousarray(ds[name].values)
+        h.update(name.encode())
+        h.update(str(values.dtype.str).encode())
+        h.update(str(values.shape).encode())
+        h.update(values.tobytes())
+    return h.hexdigest()
+
+
+def save_emulator(emulator: PathwayEmulator, path, metadata: dict | None = None) -> Path:
+    """Write a fitted emulator to `path` (NetCDF, atomically). `metadata`: JSON-serialisable extras
+    (e.g. scenario, run labels, settings) returned again by `load_emulator`."""
+    emulator._check_fitted()
+    data = {name: (dims, np.asarray(getattr(emulator, name), float)) for name, dims in _ARRAYS.items()}
+    data["kernel_theta"] = (("component", "theta"), np.array([gp.kernel_.theta for gp in emulator.gps_]))
+    mm = emulator.mean_model_
+    if mm.forcing is not None:
+        data["forcing"] = (("year",), np.asarray(mm.forcing, float))
+    ds = xr.Dataset(data)
+    ds["forcing" if "forcing" in ds else "residual_mean_"].attrs["units"] = "W m-2" if "forcing" in ds else "K"
+    ds.attrs = {
+        "format": FORMAT,
+        "format_version": FORMAT_VERSION,
+        "title": "fitted pathway emulator",
+        "Conventions": "CF-1.10",
+        "parameters": json.dumps(_jsonable(emulator.get_params())),
+        "mean_model": json.dumps({k: getattr(mm, k) for k in ("n_years", "f2x", "heat_capacity", "deep_heat_capacity",
+                                                              "exchange", "efficacy", "ecs_index")}),
+        "internal_variability": json.dumps(emulator.internal_variability_),
+        "metadata": json.dumps(_jsonable(metadata or {})),
+    }
+    ds.attrs["checksum_sha256"] = _checksum(ds)
+    path = Path(path)
+    with atomic_path(path) as tmp:
+        ds.to_netcdf(tmp, engine="netcdf4")
+    return path
+
+
+def _jsonable(value):
+    if isinstance(value, dict):
+        return {str(k): _jsonable(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_jsonable(v) for v in value]
+    if isinstance(value, np.ndarray):
+        return _jsonable(value.tolist())
+    if isinstance(value, np.generic):
+        return value.item()
+    return value
+
+
+def load_emulator(path) -> tuple[PathwayEmulator, dict]:
+    """Read a file written by `save_emulator`; returns (emulator, metadata). Refuses foreign, newer,
+    or altered files."""
+    path = Path(path)
+    if not path.exists():
+        raise EmulatorInputError("no such emulator file", path=path)
+    try:
+        with xr.open_dataset(path, engine="netcdf4") as opened:
+            ds = opened.load()
+    except (OSError, ValueError) as exc:
+        raise EmulatorInputError(f"not a readable NetCDF file ({exc})", path=path) from None
+    if ds.attrs.get("format") != FORMAT:
+        raise EmulatorInputError("not a saved pathway emulator", path=path)
+    version = int(ds.attrs.get("format_version", -1))
+    if version != FORMAT_VERSION:
+        raise EmulatorInputError(f"format version {version}, this sensemble reads version {FORMAT_VERSION}",
+                                 path=path, hint="refit the emulator with this version")
+    if ds.attrs.get("checksum_sha256") != _checksum(ds):
+        raise EmulatorInputError("checksum mismatch: the file was altered or damaged after it was written",
+                                 path=path, hint="refit the emulator")
+    params = json.loads(ds.attrs["parameters"])
+    params["inputs"] = tuple(params["inputs"])
+    if params.get("internal_variability") is not None:
+        params["internal_variability"] = tuple(params["internal_variability"])
+    em = PathwayEmulator(**params)
+    for name in _ARRAYS:
+        setattr(em, name, ds[name].values.astype(float))
+    mm = json.loads(ds.attrs["mean_model"])
+    forcing = ds["forcing"].values.astype(float) if "forcing" in ds else None
+    em.mean_model_ = PhysicsMean(forcing=forcing, **mm)
+    iv = json.loads(ds.attrs["internal_variability"])
+    em.internal_variability_ = None if iv is None else (float(iv[0]), float(iv[1]))
+    em.n_components_ = em.components_.shape[0]
+    em.fit_warnings_ = []
+    Xs = em._standardise(em.X_train_)
+    theta = ds["kernel_theta"].values
+    em.gps_ = [em._fit_gp(Xs, em.scores_[:, j], j, kernel=make_kernel(em.kernel, Xs.shape[1]).clone_with_theta(theta[j]))
+               for j in range(em.n_components_)]
+    return em, json.loads(ds.attrs["metadata"])

@@ -1,0 +1,130 @@
+"""PathwayEmulator: scikit-learn reference, physics plausibility, variance bookkeeping."""
+import numpy as np
+import pytest
+from sklearn.gaussian_process import GaussianProcessRegressor
+from sklearn.gaussian_process.kernels import ConstantKernel, Matern, WhiteKernel
+
+from emulator.ebm import TwoLayerParameters, integrate
+from emulator.errors import EmulatorInputError
+from emulator.gp import PathwayEmulator, ar1_noise, internal_variability_from_control
+
+from .synthetic import ar1
+
+MEAN = dict(f2x=3.71, heat_capacity=7.3, deep_heat_capacity=106.0, exchange=0.73, efficacy=1.0)
+
+
+def step_ensemble(ecs, years, f2x=3.71, noise=0.0, seed=0):
+    """Pathways of our two-layer model under a CO2-doubling step, Geoffroy et al. (2013a) mean capacities."""
+    p = TwoLayerParameters(f2x / np.asarray(ecs), 7.3, 106.0, 0.73)
+    t, _ = integrate(np.full(years, f2x), p)
+    if noise:
+        t = t + ar1(np.random.default_rng(seed), years, noise, 0.5, size=(len(ecs),))
+    return t
+
+
+def test_single_output_equals_sklearn_reference():
+    # Reference library: sklearn GaussianProcessRegressor fitted directly to the same standardised inputs
+    # with the same kernel (Matérn 5/2 ARD × amplitude + white noise) must give the same mean and sd to 1e-8
+    # when the physics mean is off and one component is kept.
+    rng = np.random.default_rng(3)
+    X = rng.uniform(1.5, 5.5, (15, 2))
+    y = np.sin(X[:, 0]) + 0.3 * X[:, 1] + rng.normal(0, 0.05, 15)
+    em = PathwayEmulator(inputs=("ecs_eff", "tcr"), physics_mean=False, max_components=1,
+                         n_restarts_optimizer=2, random_state=5).fit(X, y[:, None])
+    kernel = ConstantKernel(1.0, (1e-3, 1e3)) * Matern(np.ones(2), (0.3, 1e2), nu=2.5) + WhiteKernel(1e-2, (1e-8, 1e1))
+    mu, sd = X.mean(0), X.std(0)
+    ref = GaussianProcessRegressor(kernel, normalize_y=True, n_restarts_optimizer=2, random_state=5)
+    ref.fit((X - mu) / sd, y)
+    Xq = rng.uniform(1.0, 6.0, (20, 2))
+    m_ref, s_ref = ref.predict((Xq - mu) / sd, return_std=True)
+    m, s = em.predict(Xq, return_std=True)
+    np.testing.assert_allclose(m[:, 0], m_ref, atol=1e-8, rtol=0)
+    np.testing.assert_allclose(s[:, 0], s_ref, atol=1e-8, rtol=0)
+
+
+def test_doubled_co2_at_ecs_3_approaches_3_kelvin():
+    # Fact of the trade: with ECS = 3 K the warming for doubled CO2 tends to 3 K (equilibrium ΔT = F2x/λ,
+    # Held et al. 2010); over years 950–1000 (≈ 4 slow time scales, Geoffroy et al. 2013a) within ~3 %.
+    ecs = np.array([2.0, 2.5, 3.5, 4.0, 4.5, 5.0])
+    years = 1000
+    Y = step_ensemble(ecs, years, noise=0.05)
+    em = PathwayEmulator(max_components=3).fit(ecs[:, None], Y, forcing=np.full(years, 3.71), mean_params=MEAN)
+    mean, sd = em.predict([[3.0]], return_std=True)
+    late = mean[0, -50:].mean()
+    assert 2.90 < late < 3.03
+    assert late > mean[0, 200:250].mean() + 0.1  # still rising towards it
+    assert sd[0, -1] < 0.1
+    truth = step_ensemble([3.0], years)[0]
+    assert np.mean(np.abs(mean[0] - truth)) < 0.05
+
+
+def test_no_feedback_case_gives_about_1_2_kelvin():
+    # Fact of the trade: Planck response alone, λ ≈ 3.2 W m-2 K-1, gives F2x/λ ≈ 3.71/3.2 ≈ 1.2 K for doubled CO2.
+    ecs = np.array([1.0, 1.5, 2.0, 3.0, 4.0, 5.0])
+    years = 1000
+    Y = step_ensemble(ecs, years, noise=0.05)
+    em = PathwayEmulator(max_components=3).fit(ecs[:, None], Y, forcing=np.full(years, 3.71), mean_params=MEAN)
+    assert em.predict([[3.71 / 3.2]])[0, -1] == pytest.approx(1.2, abs=0.05)
+
+
+def test_variance_adds_up_and_sampling_agrees():
+    # Bookkeeping (common practice, no source): predictive variance = Σ σ_j² v_j² + truncation + internal,
+    # and sampled pathways reproduce the predicted mean and sd.
+    ecs = np.linspace(2.0, 5.0, 10)
+    Y = step_ensemble(ecs, 80, noise=0.1, seed=2)
+    iv = (0.1, 0.5)
+    em = PathwayEmulator(physics_mean=True, variance_kept=0.6, internal_variability=iv).fit(
+        ecs[:, None], Y, forcing=np.full(80, 3.71), mean_params=MEAN)
+    assert em.n_components_ < 9 and em.truncation_variance_.sum() > 0
+    mean, sd = em.predict([[3.2]], return_std=True)
+    mu, s = em.component_predictions([[3.2]])
+    expected = (s ** 2) @ em.components_ ** 2 + em.truncation_variance_ + iv[0] ** 2
+    np.testing.assert_allclose(sd[0] ** 2, expected[0], rtol=1e-12)
+    paths = em.sample_paths([[3.2]], 20000, random_state=1)
+    np.testing.assert_allclose(paths[0].mean(0), mean[0], atol=4 * sd.max() / np.sqrt(20000))
+    np.testing.assert_allclose(paths[0].std(0), sd[0], rtol=0.05)
+
+
+def test_ar1_noise_is_stationary_with_given_lag1():
+    # AR(1) x_t = φ x_{t−1} + e_t, var e = sd²(1 − φ²) is stationary with var sd² (textbook, common practice).
+    noise = ar1_noise(np.random.default_rng(0), (40000, 30), 0.1, 0.5)
+    np.testing.assert_allclose(noise.std(0), 0.1, rtol=0.03)
+    assert np.corrcoef(noise[:, 20], noise[:, 21])[0, 1] == pytest.approx(0.5, abs=0.03)
+
+
+def test_internal_variability_from_control_recovers_ar1():
+    # AR(1) estimates (common practice, no source): sd and lag-1 autocorrelation back within sampling error.
+    rng = np.random.default_rng(0)
+    series = list(ar1(rng, 500, 0.12, 0.6, size=(8,)))
+    sd, phi = internal_variability_from_control(series + [None])
+    assert sd == pytest.approx(0.12, rel=0.1)
+    assert phi == pytest.approx(0.6, abs=0.08)
+
+
+def test_learned_attributes_and_errors():
+    em = PathwayEmulator()
+    assert not hasattr(em, "gps_")
+    with pytest.raises(EmulatorInputError, match="not fitted"):
+        em.predict([[3.0]])
+    X, Y = np.linspace(2, 5, 6)[:, None], np.ones((6, 10))
+    with pytest.raises(EmulatorInputError, match="needs forcing"):
+        em.fit(X, Y)
+    with pytest.raises(EmulatorInputError, match="'ecs_eff' among the inputs"):
+        PathwayEmulator(inputs=("tcr",)).fit(X, Y, forcing=np.ones(10), mean_params=MEAN)
+    with pytest.raises(EmulatorInputError, match="variance_kept"):
+        PathwayEmulator(physics_mean=False, variance_kept=1.5).fit(X, Y)
+    with pytest.raises(EmulatorInputError, match="unknown kernel"):
+        PathwayEmulator(physics_mean=False, kernel="cubic").fit(X, Y)
+    with pytest.raises(EmulatorInputError, match="2 columns"):
+        PathwayEmulator(physics_mean=False).fit(np.ones((6, 2)), Y)
+
+
+def test_rbf_kernel_and_physics_off_fit():
+    ecs = np.linspace(2.0, 5.0, 8)
+    Y = step_ensemble(ecs, 60, noise=0.05)
+    em = PathwayEmulator(physics_mean=False, kernel="rbf", max_components=2).fit(ecs[:, None], Y)
+    assert em.components_.shape == (2, 60) and len(em.gps_) == 2
+    np.testing.assert_allclose(em.components_ @ em.components_.T, np.eye(2), atol=1e-12)
+    # interpolating between training runs stays close to the true two-layer response (common practice)
+    truth = step_ensemble([3.3], 60)[0]
+    assert np.max(np.abs(em.predict([[3.3]])[0] - truth)) < 0.15

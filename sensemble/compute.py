@@ -199,14 +199,9 @@ def open_compute(settings: ComputeSettings) -> Iterator[object | None]:
 
 def active_client():
     """The distributed client dask would compute on now, or None (a local scheduler)."""
-    try:
-        from distributed import default_client
-    except ImportError:
-        return None
-    try:
-        return default_client()
-    except ValueError:  # no client
-        return None
+    from extractor.pipeline import _distributed_client
+
+    return _distributed_client()
 
 
 def compute_batch(*collections, progress: bool = True):
@@ -214,24 +209,8 @@ def compute_batch(*collections, progress: bool = True):
 
     dask's local `ProgressBar` sees nothing of a distributed cluster, so under a client the
     graph is submitted as futures and followed with distributed's terminal progress bar.
-    Raises the first task's exception, like `dask.compute`.
+    Raises the first task's exception, like `dask.compute`. (The extractor's batch uses the same code.)
     """
-    client = active_client()
-    if client is None:
-        if not progress:
-            return dask.compute(*collections)
-        from dask.diagnostics import ProgressBar
+    from extractor.pipeline import _compute_all
 
-        with ProgressBar(minimum=1.0):
-            return dask.compute(*collections)
-    futures = client.compute(list(collections))
-    try:
-        if progress:
-            from distributed import progress as follow
-
-            follow(futures, notebook=False)
-        return tuple(client.gather(futures))
-    finally:
-        for future in futures:
-            future.release()
-
+    return tuple(_compute_all(list(collections), progress))

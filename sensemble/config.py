@@ -714,7 +714,10 @@ def settings_fingerprint(config: BatchConfig, sections: tuple[str, ...] = ("arch
 
 def shipped_config(name: str) -> Path:
     """Path of a config shipped in the project's `configs/` folder, e.g. `shipped_config("demo")`."""
-    path = Path(__file__).resolve().parent.parent / "configs" / f"{name}.toml"
+    here = Path(__file__).resolve().parent
+    # installed: sensemble/configs/ (package data); in a checkout: configs/ beside the package
+    candidates = [here / "configs" / f"{name}.toml", here.parent / "configs" / f"{name}.toml"]
+    path = next((p for p in candidates if p.is_file()), candidates[-1])
     if not path.is_file():
         raise ConfigError(f"{path}: no shipped config '{name}' (configs/ is not next to the installed package)")
     return path

@@ -222,7 +222,7 @@ class PathwayEmulator(BaseEstimator):
             warnings.simplefilter("always", ConvergenceWarning)
             self.gps_ = [self._fit_gp(Xs, self.scores_[:, j], j) for j in range(k)]
         # hyperparameters at a bound are worth knowing, not worth a console full of warnings
-        self.fit_warnings_ = sorted({str(w.message).split(".")[0] for w in caught
+        self.fit_warnings_ = sorted({str(w.message).split(". Decreasing")[0].split(". Increasing")[0] for w in caught
                                      if issubclass(w.category, ConvergenceWarning)})
         return self
 

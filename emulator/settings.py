@@ -19,6 +19,11 @@ class EmulatorSettings:
     internal_variability: bool = True
     physics_mean: bool = True
     random_state: int = 0
+    efficacy: bool = False  # calibrate the deep-ocean heat-uptake efficacy (Geoffroy et al. 2013b) for the mean
+    n_restarts_optimizer: int = 1  # extra random starts of each GP's hyperparameter search
+    co2_reference: float = 278.0  # ppm, C0 of the CO2 forcing formula
+    validate: bool = True  # leave-one-model-out validation (needs ≥ 4 models)
+    validation_samples: int = 1000  # sampled pathways per held-out run for its end-of-pathway interval
 
 
 @dataclass(frozen=True)
@@ -30,3 +35,7 @@ class PredictionSettings:
     quantiles: tuple[float, ...] = (0.05, 0.17, 0.50, 0.83, 0.95)
     n_samples: int = 2000
     random_state: int = 0
+    grid: dict | None = None  # {input: [values…]}: every combination becomes a point case
+    crossing_window: int = 20  # years of the running mean whose first exceedance dates a crossing
+    figures: bool = True
+    max_fan_figures: int = 24  # a fan figure per case, up to this many

@@ -1,0 +1,260 @@
+"""`emulate`: from an extractor output folder to pathways, crossings, validation, a saved emulator and figures.
+
+The one entry point the command line needs. Files written into `out_dir` (each atomically):
+`pathways.csv`, `pathways.nc`, `crossings.csv`, `validation.csv`, `calibration.csv`, `training_runs.csv`,
+`emulator.nc`, `figures/fan_<case>.png`, `figures/validation.png`.
+"""
+from __future__ import annotations
+
+import time
+from dataclasses import asdict, dataclass, field
+from pathlib import Path
+from typing import Callable
+
+import numpy as np
+import pandas as pd
+
+from .atomic import atomic_path, write_csv
+from .calibrate import calibrate_two_layer
+from .errors import EmulatorInputError
+from .forcing import align_forcing, co2_forcing, diagnose_forcing, read_forcing_file
+from .gp import PathwayEmulator, internal_variability_from_control
+from .persist import save_emulator
+from .predict import case_from_mapping, default_cases, grid_cases, predict_cases
+from .settings import EmulatorSettings, PredictionSettings
+from .training import TrainingSet, load_training_set
+from .validate import END_YEARS, leave_one_model_out, validation_table
+
+__all__ = ["emulate", "EmulationResult", "calibrate_runs", "build_emulator"]
+
+FORCING_RATIO = 2.0  # erf_4x / F2x, as in the sensitivity table's ecs_eff = -erf_4x / (2 feedback)
+CALIBRATION_COLUMNS = ["model", "member", "lambda_", "heat_capacity", "deep_heat_capacity", "exchange", "efficacy",
+                       "forcing_4x", "status"]
+
+
+@dataclass
+class EmulationResult:
+    """What `emulate` did: `summary` (small, printable), `files` written, and the objects for further use."""
+
+    summary: dict
+    files: list[Path]
+    validation: pd.DataFrame | None = None
+    prediction: object = None
+    emulator: PathwayEmulator | None = None
+    training: TrainingSet | None = None
+    calibration: pd.DataFrame | None = None
+    notes: list[str] = field(default_factory=list)
+
+
+def calibrate_runs(ts: TrainingSet, efficacy: bool = False) -> pd.DataFrame:
+    """Two-layer parameters per run from its abrupt series; a run that cannot be calibrated gets a status, not a guess."""
+    rows = []
+    for i in range(ts.n_runs):
+        row = dict(model=ts.models[i], member=ts.members[i])
+        tas, rtnt = ts.abrupt_tas[i], ts.abrupt_rtnt[i]
+        if tas is None:
+            rows.append({**row, "status": "no abrupt run"})
+            continue
+        try:
+            params, f4x = calibrate_two_layer(tas, rtnt, efficacy=efficacy)
+        except EmulatorInputError as exc:
+            rows.append({**row, "status": f"calibration failed: {exc}"})
+            continue
+        rows.append({**row, **{k: float(v) for k, v in asdict(params).items()}, "forcing_4x": f4x, "status": "ok"})
+    return pd.DataFrame(rows, columns=CALIBRATION_COLUMNS)
+
+
+def _mean_parameters(calibration: pd.DataFrame) -> dict:
+    ok = calibration[calibration["status"] == "ok"]
+    if ok.empty:
+        raise EmulatorInputError("no run could be calibrated, so the physics mean has no heat capacities",
+                                 hint="check the abrupt runs, or set physics_mean = false")
+    return {
+        "f2x": float(ok["forcing_4x"].median() / FORCING_RATIO),
+        "heat_capacity": float(ok["heat_capacity"].median()),
+        "deep_heat_capacity": float(ok["deep_heat_capacity"].median()),
+        "exchange": float(ok["exchange"].median()),
+        "efficacy": float(ok["efficacy"].median()),
+        "n_calibrated": int(len(ok)),
+    }
+
+
+def _scenario_forcing(ts: TrainingSet, settings: EmulatorSettings, calibration: pd.DataFrame, f2x: float):
+    source = settings.forcing_source
+    if source == "diagnosed":
+        lam = -ts.table["feedback"].to_numpy(float) if "feedback" in ts.table else np.full(ts.n_runs, np.nan)
+        lam_cal = calibration.set_index(["model", "member"])["lambda_"]
+        fallback = np.array([lam_cal.get((m, r), np.nan) for m, r in zip(ts.models, ts.members)], float)
+        lam = np.where(np.isfinite(lam) & (lam > 0), lam, fallback)
+        usable = np.isfinite(lam) & (lam > 0)
+        if not usable.any():
+            raise EmulatorInputError("no run has a feedback parameter to diagnose the forcing with")
+        f = diagnose_forcing(ts.Y[usable], ts.scenario_rtnt[usable], lam[usable], groups=ts.models[usable])
+        return f.values, f"diagnosed from {int(f.attrs['n_models'])} models (F = N + λT)"
+    if source == "file":
+        if not settings.forcing_file:
+            raise EmulatorInputError("forcing_source = 'file' needs forcing_file")
+        values, how = align_forcing(read_forcing_file(settings.forcing_file), ts.years, ts.calendar_years)
+        return values, f"file {settings.forcing_file} (matched on {how})"
+    if source == "co2":
+        if not settings.co2_file:
+            raise EmulatorInputError("forcing_source = 'co2' needs co2_file")
+        conc, how = align_forcing(read_forcing_file(settings.co2_file), ts.years, ts.calendar_years)
+        return co2_forcing(conc, settings.co2_reference, f2x=f2x), f"CO2 file {settings.co2_file} (5.35 ln C/C0, rescaled to F2x)"
+    raise EmulatorInputError(f"unknown forcing_source {source!r}", hint="use diagnosed, co2 or file")
+
+
+def build_emulator(ts: TrainingSet, settings: EmulatorSettings, calibration: pd.DataFrame):
+    """Everything learned from a training set: mean parameters, forcing, internal variability, the fit.
+
+    Returns (fitted emulator, details dict). Used for the final fit and for every validation fold.
+    """
+    keep = pd.MultiIndex.from_arrays([ts.models, ts.members])
+    cal = calibration.set_index(["model", "member"]).loc[keep].reset_index()
+    details = {}
+    forcing = mean_params = None
+    if settings.physics_mean:
+        mean_params = _mean_parameters(cal)
+        forcing, details["forcing_source"] = _scenario_forcing(ts, settings, cal, mean_params["f2x"])
+        details["mean_parameters"] = mean_params
+    iv = None
+    if settings.internal_variability:
+        try:
+            iv = internal_variability_from_control(ts.control_tas)
+        except EmulatorInputError as exc:
+            details["internal_variability_note"] = str(exc)
+    details["internal_variability"] = iv
+    emulator = PathwayEmulator(
+        inputs=tuple(settings.inputs), physics_mean=settings.physics_mean, variance_kept=settings.variance_kept,
+        max_components=settings.max_components, kernel=settings.kernel, internal_variability=iv,
+        n_restarts_optimizer=settings.n_restarts_optimizer, random_state=settings.random_state,
+    ).fit(ts.X, ts.Y, forcing=forcing, mean_params=mean_params)
+    return emulator, details
+
+
+def _cases(prediction: PredictionSettings, ts: TrainingSet, rng):
+    cases = [case_from_mapping(spec, ts.inputs, prediction.n_samples, rng) for spec in prediction.cases]
+    if prediction.grid:
+        cases += grid_cases(prediction.grid)
+    if not cases:
+        cases = default_cases(ts.X, ts.models, ts.inputs)
+    names = [c.name for c in cases]
+    if len(set(names)) != len(names):
+        raise EmulatorInputError(f"case names repeat: {', '.join(sorted({n for n in names if names.count(n) > 1}))}")
+    return cases
+
+
+def _write_netcdf(ds, path, scenario):
+    ds = ds.copy()
+    ds.attrs.update(Conventions="CF-1.10", title=f"emulated warming pathways for scenario {scenario}",
+                    source="sensemble pathway emulator", scenario=scenario,
+                    history=f"{time.strftime('%Y-%m-%dT%H:%M:%SZ', time.gmtime())} sensemble emulate")
+    ds["flags"] = ds["flags"].astype(str)
+    ds = ds.assign_coords(case=ds["case"].values.astype(str))
+    with atomic_path(path) as tmp:
+        ds.to_netcdf(tmp, engine="netcdf4")
+    return Path(path)
+
+
+def emulate(extract_dir, out_dir, settings: EmulatorSettings = EmulatorSettings(),
+            prediction: PredictionSettings = PredictionSettings(),
+            progress: Callable[[str], None] | None = None) -> EmulationResult:
+    """Fit, validate and run the pathway emulator on an extractor output folder; write the contract files.
+
+    Parameters
+    ----------
+    extract_dir : folder with `sensitivity.csv` and `series/` (the extractor's output)
+    out_dir : where the outputs go (created)
+    settings : how the emulator is built (scenario, inputs, forcing source, …)
+    prediction : what to predict (cases, grid, thresholds, quantiles, samples)
+    progress : called with a short message at each stage (e.g. `print`)
+
+    Returns
+    -------
+    EmulationResult with `summary` (scenario, runs used and skipped, validation scores, files written).
+    """
+    say = progress or (lambda message: None)
+    started = time.perf_counter()
+    out_dir = Path(out_dir)
+    out_dir.mkdir(parents=True, exist_ok=True)
+    files: list[Path] = []
+    say(f"reading {extract_dir}")
+    ts = load_training_set(extract_dir, settings.scenario, settings.inputs)
+    n_models = len(set(ts.models))
+    say(f"scenario {ts.scenario}: {ts.n_runs} runs of {n_models} models, {len(ts.years)} years"
+        + (f"; {len(ts.skipped)} runs skipped" if len(ts.skipped) else ""))
+    say("calibrating the two-layer model per run")
+    calibration = calibrate_runs(ts, efficacy=settings.efficacy)
+    files.append(write_csv(calibration, out_dir / "calibration.csv"))
+    runs = pd.concat([
+        pd.DataFrame({"model": ts.models, "member": ts.members,
+                      **{c: ts.X[:, j] for j, c in enumerate(ts.inputs)}, "used": True, "reason": ""}),
+        ts.skipped.assign(used=False),
+    ], ignore_index=True)
+    files.append(write_csv(runs, out_dir / "training_runs.csv"))
+
+    say("fitting the emulator")
+    emulator, details = build_emulator(ts, settings, calibration)
+
+    validation_summary, per_run = None, None
+    if settings.validate:
+        if n_models >= 4:
+            per_run, validation_summary = leave_one_model_out(
+                ts, lambda sub: build_emulator(sub, settings, calibration)[0],
+                n_samples=settings.validation_samples, random_state=settings.random_state, progress=say)
+            files.append(write_csv(validation_table(per_run, validation_summary), out_dir / "validation.csv"))
+        else:
+            details["validation_note"] = f"validation skipped: {n_models} models, at least 4 needed"
+            say(details["validation_note"])
+
+    say("predicting")
+    rng = np.random.default_rng(prediction.random_state)
+    cases = _cases(prediction, ts, rng)
+    result = predict_cases(
+        emulator, cases, training_X=ts.X, years=ts.years, calendar_years=ts.calendar_years,
+        thresholds=prediction.thresholds, quantiles=prediction.quantiles, n_samples=prediction.n_samples,
+        crossing_window=prediction.crossing_window, random_state=rng)
+    files.append(write_csv(result.pathways_table(), out_dir / "pathways.csv"))
+    files.append(_write_netcdf(result.dataset, out_dir / "pathways.nc", ts.scenario))
+    files.append(write_csv(result.crossings, out_dir / "crossings.csv"))
+
+    metadata = {
+        "scenario": ts.scenario, "source": str(extract_dir), "inputs": list(ts.inputs),
+        "models": list(ts.models), "members": list(ts.members), "years": ts.years,
+        "calendar_years": ts.calendar_years, "settings": asdict(settings),
+        "mean_parameters": details.get("mean_parameters"), "forcing_source": details.get("forcing_source"),
+        "skipped": ts.skipped.to_dict(orient="records"),
+    }
+    files.append(save_emulator(emulator, out_dir / "emulator.nc", metadata))
+
+    if prediction.figures:
+        from .figures import fan_figure, safe_name, validation_figure  # matplotlib only when figures are wanted
+
+        say("drawing figures")
+        for name in list(result.dataset["case"].values)[: prediction.max_fan_figures]:
+            files.append(fan_figure(result.dataset, name, out_dir / "figures" / f"fan_{safe_name(name)}.png",
+                                    training_Y=ts.Y, thresholds=prediction.thresholds, scenario=ts.scenario))
+        if per_run is not None:
+            files.append(validation_figure(per_run, out_dir / "figures" / "validation.png", END_YEARS))
+
+    summary = {
+        "scenario": ts.scenario,
+        "inputs": list(ts.inputs),
+        "n_runs": ts.n_runs,
+        "n_models": n_models,
+        "skipped_runs": [f"{r.model} {r.member}: {r.reason}" for r in ts.skipped.itertuples()],
+        "calibration_failures": [f"{r.model} {r.member}: {r.status}" for r in calibration.itertuples() if r.status != "ok"],
+        "n_components": int(emulator.n_components_),
+        "variance_explained": float(np.sum(emulator.explained_variance_ratio_)),
+        "forcing": details.get("forcing_source", "none (physics mean off)"),
+        "mean_parameters": details.get("mean_parameters"),
+        "internal_variability": details.get("internal_variability"),
+        "validation": validation_summary,
+        "notes": [v for k, v in details.items() if k.endswith("_note")] + list(emulator.fit_warnings_),
+        "n_cases": len(cases),
+        "out_dir": str(out_dir),
+        "files": [str(f) for f in files],
+        "seconds": round(time.perf_counter() - started, 1),
+    }
+    return EmulationResult(summary, files, validation_table(per_run, validation_summary) if per_run is not None else None,
+                           result, emulator, ts, calibration)

@@ -25,7 +25,9 @@ CONVENTIONS = "CF-1.7 CMIP-6.2"
 FILL_VALUE = np.float32(1.0e20)
 _COMPLEVEL = 1  # zlib level: 1 is several times faster than 4 for ~the same size on noisy float32
 _BLOCK_BYTES = 32_000_000  # float64 bytes of one write block
-_CHUNK_BYTES = 1_000_000  # float32 bytes of one storage chunk
+_CHUNK_BYTES = 4_000_000  # at most this many float32 bytes in one storage chunk
+# Storage chunks of 10 years or a divisor of it, so readers taking decades (or years) never split one.
+_CHUNK_MONTHS = (120, 60, 24, 12, 6, 4, 3, 2, 1)
 
 # CF standard names (CF standard name table) and CMIP-style long names.
 VARIABLE_ATTRS = {
@@ -199,7 +201,8 @@ def write_run(archive: Path, model: ModelSpec, run: Run, branch: dict | None, va
                 h.setncatts({"units": "m", "axis": "Z", "positive": "up", "long_name": "height",
                              "standard_name": "height"})
                 h.assignValue(2.0)
-            chunk_t = int(min(nt, max(1, _CHUNK_BYTES // (4 * nlat * nlon))))
+            fits = [c for c in _CHUNK_MONTHS if c * 4 * nlat * nlon <= _CHUNK_BYTES] or [1]
+            chunk_t = min(nt, fits[0])
             v = ds.createVariable(variable, "f4", ("time", "lat", "lon"), zlib=True, complevel=_COMPLEVEL, shuffle=True,
                                   chunksizes=(chunk_t, nlat, nlon), fill_value=FILL_VALUE)
             v.setncatts(VARIABLE_ATTRS[variable] | {"cell_measures": "area: areacella"})

@@ -6,7 +6,8 @@ import sys
 import time
 from pathlib import Path
 
-from .generate import DEFAULT_GRID, _parse_grid, generate
+from .generate import DEFAULT_GRID, _parse_grid, _parse_years, generate
+from .models import DEFAULT_YEARS
 
 
 def _size_mb(folder: Path) -> float:
@@ -22,15 +23,20 @@ def main(argv=None) -> int:
     parser.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
     parser.add_argument("--grid", default="x".join(map(str, DEFAULT_GRID)),
                         help="NLATxNLON of the regular grid (default %(default)s; 180x360 for a 1-degree grid)")
+    parser.add_argument("--years", default="",
+                        help="shorter or longer runs, ROLE=N[,ROLE=N...] with roles " + ", ".join(
+                            f"{k} (default {v})" for k, v in DEFAULT_YEARS.items()))
     parser.add_argument("--quiet", action="store_true", help="no progress lines")
     args = parser.parse_args(argv)
     try:
         grid = _parse_grid(args.grid)
         start = time.perf_counter()
-        archive = generate(args.dir, n_models=args.models, seed=args.seed, grid=grid, progress=not args.quiet)
+        root = generate(args.dir, n_models=args.models, seed=args.seed, grid=grid,
+                        years=_parse_years(args.years) or None, progress=not args.quiet)
     except (ValueError, FileExistsError) as err:
         print(f"demo_ensemble: {err}", file=sys.stderr)
         return 2
+    archive = root / "archive"
     print(f"{archive}: {args.models} invented models, {_size_mb(archive):.1f} MB, "
           f"{time.perf_counter() - start:.1f} s")
     return 0

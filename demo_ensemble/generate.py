@@ -52,6 +52,17 @@ def _prepare(root: Path) -> Path:
     return archive
 
 
+def _parse_years(text: str) -> dict:
+    """"control=60,abrupt=30" → {"control": 60, "abrupt": 30} (for the command line)."""
+    years = {}
+    for item in filter(None, (part.strip() for part in text.split(","))):
+        role, sep, value = item.partition("=")
+        if not sep or not value.strip().isdigit():
+            raise ValueError(f"years must look like ROLE=N[,ROLE=N...] (e.g. control=60,abrupt=30), got {text!r}")
+        years[role.strip()] = int(value)
+    return years
+
+
 def _parse_grid(grid) -> tuple[int, int]:
     if isinstance(grid, str):
         parts = grid.lower().split("x")
@@ -80,14 +91,14 @@ def generate(root, *, n_models: int = 8, seed: int = 0, grid=DEFAULT_GRID, years
 
     Returns
     -------
-    Path of the archive folder (`root/archive`).
+    Path of `root`; the files are under `root / "archive"`, the truth in `root / "truth.csv"`.
 
     Example
     -------
     >>> import tempfile, demo_ensemble
-    >>> archive = demo_ensemble.generate(tempfile.mkdtemp(), n_models=1, grid=(6, 12),
+    >>> root = demo_ensemble.generate(tempfile.mkdtemp(), n_models=1, grid=(6, 12),
     ...     years={"control": 30, "abrupt": 20, "onepct": 20, "historical": 10, "scenario": 5})
-    >>> sorted(p.name for p in archive.iterdir() if not p.name.startswith("."))
+    >>> sorted(p.name for p in (root / "archive").iterdir() if not p.name.startswith("."))
     ['Alder-2']
     """
     root = Path(root)
@@ -129,5 +140,5 @@ def generate(root, *, n_models: int = 8, seed: int = 0, grid=DEFAULT_GRID, years
     if progress:
         print(f"demo_ensemble: archive at {archive} in {time.perf_counter() - started:.1f} s",
               file=sys.stderr, flush=True)
-    return archive
+    return root
 

@@ -40,16 +40,15 @@ CF_STANDARD_NAMES = {
 @pytest.fixture(scope="module")
 def noisy(tmp_path_factory):
     root = tmp_path_factory.mktemp("demo_noisy")
-    archive = demo_ensemble.generate(root, n_models=N_MODELS, seed=SEED, grid=GRID, years=YEARS)
-    return root, archive
+    assert demo_ensemble.generate(root, n_models=N_MODELS, seed=SEED, grid=GRID, years=YEARS) == root
+    return root, root / "archive"
 
 
 @pytest.fixture(scope="module")
 def noise_free(tmp_path_factory):
     root = tmp_path_factory.mktemp("demo_noise_free")
-    archive = demo_ensemble.generate(root, n_models=N_MODELS, seed=SEED, grid=GRID, years=YEARS,
-                                     internal_variability=False)
-    return root, archive
+    demo_ensemble.generate(root, n_models=N_MODELS, seed=SEED, grid=GRID, years=YEARS, internal_variability=False)
+    return root, root / "archive"
 
 
 @pytest.fixture(scope="module")
@@ -110,6 +109,7 @@ def test_area_weighted_annual_means_equal_the_model_series(noisy, models):
                 annual, values, _ = weighted_annual(archive, model.source_id, experiment, member, var)
                 expected = annual_mean(run_series.values[var], run_series.days)
                 tolerance = eps * np.abs(values).max()
+                assert values.min() > 0  # kelvin and radiative fluxes are positive everywhere
                 np.testing.assert_allclose(annual, expected, rtol=0, atol=tolerance,
                                            err_msg=f"{model.source_id} {experiment} {member} {var}")
 
@@ -215,9 +215,8 @@ def test_files_carry_cf_metadata(noisy):
 
 def test_generation_is_deterministic_for_a_seed(tmp_path):
     years = {"control": 12, "abrupt": 5, "onepct": 5, "historical": 3, "scenario": 2}
-    a = demo_ensemble.generate(tmp_path / "a", n_models=2, seed=7, grid=(6, 8), years=years)
-    b = demo_ensemble.generate(tmp_path / "b", n_models=2, seed=7, grid=(6, 8), years=years)
-    c = demo_ensemble.generate(tmp_path / "c", n_models=2, seed=8, grid=(6, 8), years=years)
+    a, b, c = (demo_ensemble.generate(tmp_path / name, n_models=2, seed=seed, grid=(6, 8), years=years) / "archive"
+               for name, seed in (("a", 7), ("b", 7), ("c", 8)))
     names_a = sorted(p.relative_to(a) for p in a.rglob("*.nc"))
     assert names_a == sorted(p.relative_to(b) for p in b.rglob("*.nc"))
     differs = False
@@ -336,10 +335,14 @@ def test_refuses_a_folder_it_did_not_write(tmp_path):
 
 def test_command_line(tmp_path):
     out = subprocess.run([sys.executable, "-m", "demo_ensemble", str(tmp_path / "d"), "--models", "1",
-                          "--seed", "2", "--grid", "6x8", "--quiet"], capture_output=True, text=True)
+                          "--seed", "2", "--grid", "6x8", "--quiet", "--years",
+                          "control=12,abrupt=5,onepct=5,historical=3,scenario=2"], capture_output=True, text=True)
     assert out.returncode == 0, out.stderr
     assert (tmp_path / "d" / "truth.csv").exists() and (tmp_path / "d" / "README.txt").exists()
     assert "invented" in (tmp_path / "d" / "README.txt").read_text().lower()
+    assert len(list((tmp_path / "d" / "archive").rglob("tas_Amon_*_piControl_*.nc"))) == 1
+    with netCDF4.Dataset(next((tmp_path / "d" / "archive").rglob("tas_Amon_*_piControl_*.nc"))) as ds:
+        assert ds.dimensions["time"].size == 12 * 12 and ds["tas"].shape[1:] == (6, 8)
     bad = subprocess.run([sys.executable, "-m", "demo_ensemble", str(tmp_path / "e"), "--grid", "six"],
                          capture_output=True, text=True)
     assert bad.returncode == 2 and "NLATxNLON" in bad.stderr

@@ -227,6 +227,7 @@ def test_generation_is_deterministic_for_a_seed(tmp_path):
                 x, y = np.asarray(da[v][:]), np.asarray(db[v][:])
                 assert x.tobytes() == y.tobytes(), f"{rel}:{v}"
                 differs |= x.tobytes() != np.asarray(dc[v][:]).tobytes()
+        assert (a / rel).read_bytes() == (b / rel).read_bytes(), f"{rel}: files differ byte for byte"
     assert (tmp_path / "a" / "truth.csv").read_bytes() == (tmp_path / "b" / "truth.csv").read_bytes()
     assert differs  # another seed gives another ensemble
 
@@ -346,3 +347,39 @@ def test_command_line(tmp_path):
     bad = subprocess.run([sys.executable, "-m", "demo_ensemble", str(tmp_path / "e"), "--grid", "six"],
                          capture_output=True, text=True)
     assert bad.returncode == 2 and "NLATxNLON" in bad.stderr
+
+
+def test_forcing_table_is_the_forcing_in_the_files(noise_free, models):
+    # For ε = 1, N = F − λT exactly (Geoffroy et al. 2013a), so F = ΔN + λΔT diagnosed from the
+    # noise-free historical-type and scenario files (the diagnosis of Forster et al. 2013) must equal
+    # scenario_forcing.csv; and the invented scenario rises by 0.04 W m-2/yr scaled by F2x/3.71.
+    root, archive = noise_free
+    truth = read_truth(root)
+    with open(root / "scenario_forcing.csv", newline="") as fh:
+        table = list(csv.DictReader(fh))
+    checked = 0
+    for model in models:
+        row = truth[(model.source_id, "r1i1p1f1")]
+        rows = [r for r in table if r["model"] == model.source_id]
+        assert [r["experiment_id"] for r in rows] == ["hist-demo"] * 20 + ["demo-rise"] * 10
+        scen = np.array([float(r["erf"]) for r in rows if r["experiment_id"] == "demo-rise"])
+        # (leap years shift a month-length-weighted annual mean of a ramp by ~1e-4 of a year's rise)
+        np.testing.assert_allclose(np.diff(scen), 0.04 * model.f2x / 3.71, rtol=3e-3)
+        if model.efficacy != 1.0:
+            continue
+        control = {v: weighted_annual(archive, model.source_id, "piControl", "r1i1p1f1", v)[0]
+                   for v in ("tas",) + FLUXES}
+        years = np.arange(len(control["tas"]))
+        b = int(row["branch_year_historical"])
+        diagnosed = []
+        for experiment in ("hist-demo", "demo-rise"):
+            an = {}
+            for var in ("tas",) + FLUXES:
+                exp = weighted_annual(archive, model.source_id, experiment, "r1i1p1f1", var)[0]
+                seg = slice(b, b + len(exp))
+                an[var] = exp - np.polyval(np.polyfit(years, control[var], 1), years[seg])
+            diagnosed.append(an["rsdt"] - an["rsut"] - an["rlut"] + float(row["lambda"]) * an["tas"])
+            b += len(exp)
+        np.testing.assert_allclose(np.concatenate(diagnosed), [float(r["erf"]) for r in rows], atol=2e-3)
+        checked += 1
+    assert checked >= 1

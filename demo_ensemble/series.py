@@ -122,7 +122,6 @@ def _control_state(model: ModelSpec, tau: np.ndarray) -> dict:
 def simulate(model: ModelSpec, *, noise: bool = True) -> dict:
     """Monthly global means of every run of the model: {(experiment_id, member): RunSeries}."""
     responses = _responses(model)
-    zero = None
     chain_noise = None
     out = {}
     for run in model.runs:
@@ -130,8 +129,7 @@ def simulate(model: ModelSpec, *, noise: bool = True) -> dict:
         tau = run.control_offset + (np.arange(n) + 0.5) / 12.0
         state = _control_state(model, tau)
         if run.experiment_id == CONTROL:
-            zero = np.zeros(n)
-            resp = {k: zero for k in ("tas", "erf", "rtnt", "lw_cs", "sw_cs", "cre")}
+            resp = {k: np.zeros(n) for k in ("tas", "erf", "rtnt", "lw_cs", "sw_cs", "cre")}
         else:
             resp = responses[run.experiment_id]
         if not noise:

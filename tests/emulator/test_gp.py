@@ -87,7 +87,7 @@ def test_variance_adds_up_and_sampling_agrees():
 
 def test_ar1_noise_is_stationary_with_given_lag1():
     # AR(1) x_t = φ x_{t−1} + e_t, var e = sd²(1 − φ²) is stationary with var sd² (textbook, common practice).
-    noise = ar1_noise(np.random.default_rng(0), (40000, 30), 0.1, 0.5)
+    noise = np.asarray(ar1_noise(np.random.default_rng(0), (40000, 30), 0.1, 0.5), dtype=float)
     np.testing.assert_allclose(noise.std(0), 0.1, rtol=0.03)
     assert np.corrcoef(noise[:, 20], noise[:, 21])[0, 1] == pytest.approx(0.5, abs=0.03)
 

@@ -73,3 +73,7 @@ class ArchiveError(Exception):
 
 def _rebuild(message, path, model, hint, member, experiment_id):
     return ArchiveError(message, path=path, model=model, hint=hint, member=member, experiment_id=experiment_id)
+
+
+class OutputInUseError(RuntimeError):
+    """The output folder is locked by another running extraction; ``str(error)`` is one line saying what to do."""

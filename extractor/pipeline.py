@@ -22,12 +22,14 @@ from . import __version__
 from .annual import annual_means
 from .atomic import atomic_path
 from .budget import toa_budget
-from .catalog import Catalog, RunFiles, scan
-from .control import branch_year, control_residuals, drift_corrected, join_chain
+from .catalog import Catalog, RunFiles, parse_file_name, scan
+from .control import ControlError, branch_year, control_residuals, drift_corrected, join_chain
 from .errors import ArchiveError
 from .figures import ensemble_summary, gregory_plot
 from .flags import join_flags, quality_flags
-from .gregory import bootstrap_ecs, component_feedbacks, gregory_fit, odr_fit, quadratic_fit, segment_fits
+from .gregory import (FitWindowError, bootstrap_ecs, component_feedbacks, gregory_fit, odr_fit, quadratic_fit,
+                      segment_fits)
+from .lock import output_lock
 from .report import write_report
 from .runs import global_mean_series
 from .settings import ExtractionSettings
@@ -77,6 +79,7 @@ class ExtractionResult:
     seconds: float
     files_read: int = 0
     bytes_read: int = 0
+    notes: list[str] = field(default_factory=list)  # e.g. a stale lock taken over
 
     @property
     def ok(self) -> bool:
@@ -193,10 +196,21 @@ def _compute(lazy: dict, progress: bool) -> tuple[dict, dict]:
         return results, errors
 
 
-def _anomalies(run_annual: xr.Dataset, control_annual: xr.Dataset, settings) -> tuple[xr.Dataset, list[str]]:
-    year0, flags = branch_year(run_annual.attrs, control_annual)
-    anomalies, more = drift_corrected(run_annual, control_annual, year0, order=settings.drift_order,
-                                      min_years=settings.min_control_years)
+def _anomalies(run_annual: xr.Dataset, control_annual: xr.Dataset, settings, run: RunFiles | None = None,
+               control_run: RunFiles | None = None) -> tuple[xr.Dataset, list[str]]:
+    try:
+        year0, flags = branch_year(run_annual.attrs, control_annual)
+    except ControlError as err:
+        raise _run_error(err, run, run_annual, "fix branch_time_in_parent and parent_time_units in the global "
+                         f"attributes of the {run_annual.attrs.get('experiment_id', 'run')} files so that they give "
+                         f"the branch as a time of the control, or delete both to start at the control's first year "
+                         "(flagged branch_assumed)") from None
+    try:
+        anomalies, more = drift_corrected(run_annual, control_annual, year0, order=settings.drift_order,
+                                          min_years=settings.min_control_years)
+    except ControlError as err:
+        raise _run_error(err, control_run, run_annual, "supply a longer control run, or lower [extraction] "
+                         f"min_control_years (now {settings.min_control_years}) in the config") from None
     anomalies.attrs["branch_year"] = int(year0)
     return anomalies, list(flags) + list(more)
 
@@ -258,13 +272,20 @@ def _fit_row(unit: Unit, anomalies: xr.Dataset | None, tcr_value, control_annual
     fit = None
     if anomalies is not None:
         dT, dN = anomalies["tas"], anomalies["rtnt"]
-        fit = gregory_fit(dT, dN, years=settings.fit_years, forcing_ratio=settings.forcing_ratio)
-        q05, q95 = bootstrap_ecs(dT, dN, years=settings.fit_years, block=settings.bootstrap_block,
-                                 n_samples=settings.bootstrap_samples, seed=settings.seed,
-                                 forcing_ratio=settings.forcing_ratio)
-        seg = segment_fits(dT, dN, early=settings.early_years, late=settings.late_years,
-                           forcing_ratio=settings.forcing_ratio)
-        quad = quadratic_fit(dT, dN, years=settings.fit_years)
+        keys = ("fit_years",)
+        try:
+            fit = gregory_fit(dT, dN, years=settings.fit_years, forcing_ratio=settings.forcing_ratio)
+            keys = ("bootstrap_block",)
+            q05, q95 = bootstrap_ecs(dT, dN, years=settings.fit_years, block=settings.bootstrap_block,
+                                     n_samples=settings.bootstrap_samples, seed=settings.seed,
+                                     forcing_ratio=settings.forcing_ratio)
+            keys = ("early_years", "late_years")
+            seg = segment_fits(dT, dN, early=settings.early_years, late=settings.late_years,
+                               forcing_ratio=settings.forcing_ratio)
+            keys = ("fit_years",)
+            quad = quadratic_fit(dT, dN, years=settings.fit_years)
+        except FitWindowError as err:
+            raise _run_error(err, unit.abrupt, anomalies, _window_hint(settings, keys)) from None
         row.update(erf_4x=fit.erf, erf_4x_se=fit.erf_se, feedback=fit.feedback, feedback_se=fit.feedback_se,
                    ecs_eff=fit.ecs_eff, ecs_eff_q05=q05, ecs_eff_q95=q95, feedback_early=seg.feedback_early,
                    feedback_late=seg.feedback_late, feedback_change=seg.feedback_change, ecs_late=seg.ecs_late,
@@ -304,20 +325,26 @@ def _process_unit(unit: Unit, series: dict[str, xr.Dataset], settings, out_dir: 
 
     abrupt_anom = tcr_value = None
     if unit.abrupt is not None:
-        abrupt_anom, more = _anomalies(annual[unit.abrupt.experiment_id], control, settings)
+        abrupt_anom, more = _anomalies(annual[unit.abrupt.experiment_id], control, settings, unit.abrupt,
+                                       unit.control)
         flags.extend(more)
         groups[unit.abrupt.experiment_id] = _group(abrupt_anom, "abrupt")
     if unit.onepct is not None:
-        onepct_anom, more = _anomalies(annual[unit.onepct.experiment_id], control, settings)
+        onepct_anom, more = _anomalies(annual[unit.onepct.experiment_id], control, settings, unit.onepct,
+                                       unit.control)
         flags.extend(more)
         groups[unit.onepct.experiment_id] = _group(onepct_anom, "onepct")
-        tcr_value = float(transient_response(onepct_anom["tas"], years=settings.tcr_years))
+        try:
+            tcr_value = float(transient_response(onepct_anom["tas"], years=settings.tcr_years))
+        except FitWindowError as err:
+            raise _run_error(err, unit.onepct, onepct_anom, _window_hint(settings, ("tcr_years",))) from None
 
     others = {r.experiment_id: annual[r.experiment_id] for r in unit.others}
     chains, more = _scenario_chains(others, unit, settings)
     flags.extend(more)
     for exp_id, ds in chains.items():
-        anom, more = _anomalies(ds, control, settings)
+        anom, more = _anomalies(ds, control, settings, next((r for r in unit.others if r.experiment_id == exp_id),
+                                                            None), unit.control)
         flags.extend(more)
         groups[exp_id] = _group(anom, "scenario")
 
@@ -368,15 +395,31 @@ def extract(
     Returns
     -------
     ExtractionResult
+
+    Raises
+    ------
+    OutputInUseError
+        Another running extraction holds ``out_dir`` (its lock file ``.sensemble.lock``).
     """
-    start = time.perf_counter()
-    settings = settings or ExtractionSettings()
     log = log or (lambda message: None)
     out_dir = Path(out_dir)
     out_dir.mkdir(parents=True, exist_ok=True)
+    notes: list[str] = []
+    with output_lock(out_dir, notes):
+        for note in notes:
+            log(note)
+        return _extract_locked(archive, out_dir, settings or ExtractionSettings(), force=force, progress=progress,
+                               figures=figures, log=log, notes=notes)
+
+
+def _extract_locked(archive, out_dir: Path, settings: ExtractionSettings, *, force, progress, figures, log,
+                    notes: list[str]) -> ExtractionResult:
+    start = time.perf_counter()
     catalog = scan(archive, settings)
     units, failures = plan_units(catalog, settings)
     log(f"catalogue: {len(catalog.runs)} runs of {len(catalog.models())} models in {archive}")
+    if not units and not failures:
+        failures.append(_nothing_to_extract(archive, catalog, settings))
 
     rows, cached, todo = [], [], []
     fps = {}
@@ -391,11 +434,12 @@ def extract(
     if cached:
         log(f"reusing {len(cached)} finished runs from {out_dir / 'series'} (use --force to recompute)")
 
-    lazy, broken = {}, {}
+    lazy, broken, runs_by_label = {}, {}, {}
     for unit in todo:
         for run in unit.runs():
             if run.label in lazy or run.label in broken:
                 continue
+            runs_by_label[run.label] = run
             try:
                 lazy[run.label] = global_mean_series(run, required=settings.required_variables)
             except ArchiveError as err:
@@ -406,7 +450,12 @@ def extract(
     files = {p for unit in todo for r in unit.runs() for p in r.all_files()}
     log(f"reducing {len(lazy)} runs ({len(files)} files) in one pass")
     series, errors = _compute(lazy, progress)
-    broken.update(errors)
+    for label, err in errors.items():
+        broken[label] = err if isinstance(err, ArchiveError) else _read_failure(runs_by_label[label], err)
+    for label, ds in series.items():
+        empty = _empty_steps(ds, runs_by_label[label])
+        if empty is not None:
+            broken[label] = empty
 
     computed = []
     for unit in todo:
@@ -424,9 +473,13 @@ def extract(
         try:
             rows.append(_process_unit(unit, series, settings, out_dir, fps[unit.key], figures))
             computed.append(unit.key)
+        except ArchiveError as err:
+            failures.append(Failure(unit.model, unit.member, err.experiment_id or "model", str(err),
+                                    [err.path] if err.path else []))
         except Exception as err:  # noqa: BLE001 — one model's failure must not stop the batch
             failures.append(Failure(unit.model, unit.member, "model",
-                                    f"model {unit.model} member {unit.member}: {_message(err)}"))
+                                    f"model {unit.model} member {unit.member}: {_message(err)} — unexpected "
+                                    "error: report it with this report.md; the other models are unaffected"))
 
     provenance = {
         "software_version": __version__,
@@ -439,7 +492,7 @@ def extract(
         ensemble_summary(rows, out_dir / "figures" / "ensemble_summary.png")
     result = ExtractionResult(out_dir, sorted(rows, key=lambda r: (r["model"], r["member"])), failures,
                               list(catalog.problems), cached, computed, time.perf_counter() - start,
-                              files_read=len(files), bytes_read=sum(os.stat(p).st_size for p in files))
+                              files_read=len(files), bytes_read=sum(os.stat(p).st_size for p in files), notes=notes)
     write_report(result, settings, archive)
     return result
 
@@ -464,3 +517,93 @@ def _file_list(units: list[Unit]) -> list[str]:
                 st = os.stat(path)
                 out.append(f"{path} size={st.st_size} mtime={int(st.st_mtime)}")
     return sorted(set(out))
+
+
+def _who(attrs) -> str:
+    return " ".join(str(attrs[k]) for k in ("model", "member", "experiment_id") if attrs.get(k))
+
+
+def _run_error(err: BaseException, run: RunFiles | None, annual: xr.Dataset | None, hint: str) -> ArchiveError:
+    """A control or fit-window problem as a one-line error naming the run's first file and what to do."""
+    attrs = dict(annual.attrs) if annual is not None else {}
+    text = _message(err)
+    who = _who(attrs)
+    if who:
+        text = text.removeprefix(f"{who}: ").removeprefix(f"{who} ")
+    if run is not None and run.experiment_id != attrs.get("experiment_id", run.experiment_id):
+        text = f"for {attrs['experiment_id']}: {text}"
+    files = run.all_files() if run is not None else []
+    return ArchiveError(text, path=files[0] if files else None,
+                        model=run.model if run else attrs.get("model"), member=run.member if run else attrs.get("member"),
+                        experiment_id=run.experiment_id if run else attrs.get("experiment_id"), hint=hint)
+
+
+def _window_hint(settings: ExtractionSettings, keys: tuple[str, ...]) -> str:
+    def now(value):
+        return "-".join(map(str, value)) if isinstance(value, tuple) else str(value)
+
+    which = " and ".join(f"[extraction] {key} (now {now(getattr(settings, key))})" for key in keys)
+    return f"set {which} in the config to what the run has, or supply a longer run"
+
+
+def _read_failure(run: RunFiles, err: BaseException) -> ArchiveError:
+    """A run whose values could not be read at compute time: find the damaged file by reading each one."""
+    for variable, paths in run.files.items():
+        for path in paths:
+            try:
+                with xr.open_dataset(path, engine="netcdf4", decode_times=False) as ds:
+                    ds[variable].load()
+            except Exception as file_err:  # noqa: BLE001 — this is the file to name
+                return ArchiveError(f"values of {variable} cannot be read ({type(file_err).__name__}: "
+                                    f"{_message(file_err)})", path=path, model=run.model, member=run.member,
+                                    experiment_id=run.experiment_id,
+                                    hint="the file is damaged: replace it with a good copy")
+    return ArchiveError(f"could not be reduced ({type(err).__name__}: {_message(err)})",
+                        path=";".join(map(str, run.all_files()[:1])), model=run.model, member=run.member,
+                        experiment_id=run.experiment_id, hint="check the run's files (e.g. with ncdump) and replace "
+                        "the damaged one")
+
+
+def _file_holding(paths: list[Path], when) -> str:
+    """The file whose name's time range holds the month of ``when`` (all of them when names do not say)."""
+    month = f"{when.year:04d}{when.month:02d}"
+    for path in paths:
+        facets = parse_file_name(path)
+        if facets is not None and facets.time_range:
+            start, _, end = facets.time_range.partition("-")
+            if start[:6].ljust(6, "0") <= month <= (end or start)[:6].ljust(6, "9"):
+                return str(path)
+    return ";".join(map(str, paths))
+
+
+def _empty_steps(ds: xr.Dataset, run: RunFiles) -> ArchiveError | None:
+    """A month whose global mean is missing (no valid cell at all) cannot be averaged into its year: an error."""
+    for variable, paths in run.files.items():
+        if variable not in ds.data_vars:
+            continue
+        missing = ~np.isfinite(np.asarray(ds[variable].values, dtype=np.float64))
+        if missing.any():
+            first = ds["time"].values[int(np.flatnonzero(missing)[0])]
+            return ArchiveError(
+                f"{variable} has no valid value in any grid cell in {int(missing.sum())} month(s), the first "
+                f"{first.year:04d}-{first.month:02d}", path=_file_holding(paths, first), model=run.model,
+                member=run.member, experiment_id=run.experiment_id,
+                hint="replace the file with a complete one, or leave this run out")
+    return None
+
+
+def _nothing_to_extract(archive, catalog: Catalog, settings: ExtractionSettings) -> Failure:
+    """The one failure of a batch that found no run to extract, saying where to look."""
+    if not Path(archive).is_dir():
+        why, hint = "is not a folder", "give the folder that holds the archive"
+    elif not catalog.runs:
+        skipped = f" ({len(catalog.problems)} file(s) skipped, see the archive problems)" if catalog.problems else ""
+        models = f" of the models {', '.join(settings.include_models)}" if settings.include_models else ""
+        why = f"holds no monthly files of {', '.join(settings.variables)}{models}{skipped}"
+        hint = ("check the path, the file names (<variable>_<table>_<source>_<experiment>_<member>_<grid>"
+                "[_<start>-<end>].nc) and include_models / exclude_models in the config")
+    else:
+        found = sorted({r.experiment_id for r in catalog.runs})
+        why = f"has runs of {', '.join(found)} but none besides a control run of {settings.control!r}"
+        hint = "map the experiment roles (control, abrupt, onepct, scenarios) to the archive's ids in the config"
+    return Failure("", "", "archive", f"archive {archive}: {why}: nothing to extract — {hint}")

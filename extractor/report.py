@@ -43,6 +43,8 @@ def report_text(result, settings, archive) -> str:
             lines.append(f"  - … and {len(f.files) - 6} more files")
     lines += ["", "## Archive problems (files not used)", ""]
     lines += [f"- {p}" for p in result.problems] or ["None."]
+    if getattr(result, "notes", None):
+        lines += ["", "## Notes", ""] + [f"- {note}" for note in result.notes]
     lines.append("")
     return "\n".join(lines)
 

@@ -101,8 +101,16 @@ def open_run(
             if defaulted and "calendar_defaulted" not in flags:
                 flags.append("calendar_defaulted")
             if calendar is None:
-                calendar = (file_calendar, path)
+                calendar = (file_calendar, path, defaulted)
             elif CALENDARS[file_calendar] != CALENDARS[calendar[0]]:
+                if defaulted or calendar[2]:
+                    # name the file without a calendar attribute: that is the one to fix
+                    lacking, other, cal = ((path, calendar[1], calendar[0]) if defaulted
+                                           else (calendar[1], path, file_calendar))
+                    raise _error(
+                        run, lacking, f"time has no calendar attribute (read as CF's default 'standard') but "
+                        f"{other.name} uses {cal!r}", f"add calendar = {cal!r} to the time variable of this file",
+                    )
                 raise _error(
                     run, path, f"calendar {file_calendar!r} differs from {calendar[0]!r} in {calendar[1].name}",
                     "all files of a run must use one calendar",
@@ -207,7 +215,9 @@ def _open_file(path: Path, variable: str, run: RunFiles, chunks: dict) -> tuple[
     try:
         raw = xr.open_dataset(path, engine="netcdf4", decode_times=False, chunks=chunks)
     except Exception as err:  # netCDF4 raises OSError, xarray ValueError; both mean unreadable
-        raise _error(run, path, f"cannot be read ({type(err).__name__}: {err})", "replace the file") from None
+        text = str(err).replace(f": {str(path)!r}", "").replace(str(path), "the file")
+        raise _error(run, path, f"cannot be read ({type(err).__name__}: {text})",
+                     "the file is truncated or not NetCDF: replace it with a good copy") from None
     if variable not in raw.data_vars:
         raise _error(run, path, f"has no variable {variable!r}", "check the file's contents against its name")
     if "time" not in raw[variable].dims:

@@ -25,7 +25,7 @@ from .settings import EmulatorSettings, PredictionSettings
 from .training import TrainingSet, load_training_set
 from .validate import END_YEARS, leave_one_model_out, validation_table
 
-__all__ = ["emulate", "EmulationResult", "calibrate_runs", "build_emulator"]
+__all__ = ["emulate", "EmulationResult", "calibrate_runs", "build_emulator", "format_summary"]
 
 FORCING_RATIO = 2.0  # erf_4x / F2x, as in the sensitivity table's ecs_eff = -erf_4x / (2 feedback)
 CALIBRATION_COLUMNS = ["model", "member", "lambda_", "heat_capacity", "deep_heat_capacity", "exchange", "efficacy",
@@ -250,7 +250,9 @@ def emulate(extract_dir, out_dir, settings: EmulatorSettings = EmulatorSettings(
         "mean_parameters": details.get("mean_parameters"),
         "internal_variability": details.get("internal_variability"),
         "validation": validation_summary,
-        "notes": [v for k, v in details.items() if k.endswith("_note")] + list(emulator.fit_warnings_),
+        "notes": [v for k, v in details.items() if k.endswith("_note")] + (
+            [f"{len(emulator.fit_warnings_)} GP hyperparameter(s) ended at a search bound (usually a component the "
+             "inputs do not explain, fitted as noise)"] if emulator.fit_warnings_ else []),
         "n_cases": len(cases),
         "out_dir": str(out_dir),
         "files": [str(f) for f in files],
@@ -258,3 +260,26 @@ def emulate(extract_dir, out_dir, settings: EmulatorSettings = EmulatorSettings(
     }
     return EmulationResult(summary, files, validation_table(per_run, validation_summary) if per_run is not None else None,
                            result, emulator, ts, calibration)
+
+
+def format_summary(summary: dict) -> str:
+    """A few lines for the console: scenario, runs, emulator, validation scores, where the outputs are."""
+    lines = [f"scenario {summary['scenario']}: {summary['n_runs']} runs of {summary['n_models']} models, "
+             f"inputs {', '.join(summary['inputs'])}"]
+    for what in ("skipped_runs", "calibration_failures"):
+        for item in summary.get(what, []):
+            lines.append(f"  {what.replace('_', ' ')[:-1]}: {item}")
+    lines.append(f"emulator: {summary['n_components']} components ({100 * summary['variance_explained']:.1f} % of "
+                 f"residual variance); forcing {summary['forcing']}")
+    v = summary.get("validation")
+    if v:
+        lines.append(
+            f"leave-one-model-out ({v['n_models']} models, {v['n_runs']} runs): end-of-pathway warming "
+            f"(mean of last {v['end_years']} years) RMSE {v['end_rmse']:.3f} K, bias {v['end_bias']:+.3f} K, "
+            f"90 % coverage {v['end_coverage90']:.2f}; whole pathway RMSE {v['pathway_rmse']:.3f} K, "
+            f"90 % coverage {v['pathway_coverage90']:.2f}; standardized error mean {v['mean_z']:+.2f}, rms {v['rms_z']:.2f}")
+    for note in summary.get("notes", []):
+        lines.append(f"  note: {note}")
+    lines.append(f"{summary['n_cases']} cases predicted; outputs in {summary['out_dir']} ({len(summary['files'])} files, "
+                 f"{summary['seconds']} s)")
+    return "\n".join(lines)

@@ -128,3 +128,12 @@ def test_rbf_kernel_and_physics_off_fit():
     # interpolating between training runs stays close to the true two-layer response (common practice)
     truth = step_ensemble([3.3], 60)[0]
     assert np.max(np.abs(em.predict([[3.3]])[0] - truth)) < 0.15
+
+
+def test_gridded_physics_mean_matches_exact_response():
+    # Above PhysicsMean.exact_limit distinct inputs the mean is interpolated from a dense ln-ECS grid;
+    # against the exact two-layer response it must agree to 1e-8 K (our own accuracy claim, no outside source).
+    from emulator.gp import PhysicsMean
+    mean = PhysicsMean(60, np.linspace(0.0, 5.0, 60), **MEAN)
+    ecs = np.exp(np.random.default_rng(0).uniform(np.log(1.5), np.log(6.0), PhysicsMean.exact_limit + 500))
+    np.testing.assert_allclose(mean(ecs[:, None]), mean.response(ecs), atol=1e-8, rtol=0)

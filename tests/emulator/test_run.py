@@ -91,3 +91,9 @@ def test_forcing_from_file_and_from_co2(tmp_path):
 def test_missing_scenario_is_reported(extract_dir, tmp_path):
     with pytest.raises(EmulatorInputError, match="'nope' not found; available: scen-rise"):
         emulate(extract_dir[0], tmp_path, EmulatorSettings(scenario="nope"))
+
+
+def test_format_summary_mentions_scores_and_outputs(result):
+    from emulator import format_summary
+    text = format_summary(result[0].summary)
+    assert "RMSE" in text and "coverage" in text and str(result[1]) in text

@@ -12,7 +12,7 @@ _EXPORTS = {
     "EmulatorSettings": "settings", "PredictionSettings": "settings",
     "PathwayEmulator": "gp", "load_training_set": "training", "calibrate_two_layer": "calibrate",
     "save_emulator": "persist", "load_emulator": "persist", "EmulatorInputError": "errors",
-    "parse_point": "predict",
+    "parse_point": "predict", "parse_distribution": "predict",
 }
 __all__ = sorted(_EXPORTS)
 

@@ -23,7 +23,7 @@ from scipy.stats import norm
 from .errors import EmulatorInputError
 
 __all__ = ["Case", "point_case", "lognormal_case", "lognormal_samples", "samples_file_case", "grid_cases",
-           "default_cases", "case_from_mapping", "parse_point", "predict_cases", "Prediction", "crossing_years"]
+           "default_cases", "case_from_mapping", "parse_point", "parse_distribution", "predict_cases", "Prediction", "crossing_years"]
 
 LIKELY = (0.17, 0.83)  # the "likely" range as the 17–83 % quantiles
 
@@ -63,6 +63,28 @@ def parse_point(text: str) -> dict:
         except ValueError:
             raise EmulatorInputError(f"cannot read {part!r} as NAME=VALUE (e.g. ecs_eff=3.7)") from None
     return out
+
+
+def parse_distribution(text: str) -> dict:
+    """A distribution case mapping from command-line text (for `PredictionSettings.cases`).
+
+    'ecs_eff=3.0:2.5-4.0' → lognormal with median 3.0 and likely (17–83 %) range 2.5–4.0;
+    a path to an existing CSV file → its rows are the input samples.
+    """
+    text = text.strip()
+    if Path(text).suffix.lower() == ".csv":
+        return {"samples_file": text}
+    name, sep, rest = text.partition("=")
+    median, sep2, likely = rest.partition(":")
+    lo, sep3, hi = likely.partition("-")
+    try:
+        if not (sep and sep2 and sep3):
+            raise ValueError
+        return {"name": f"{name.strip()}~lognormal({median}:{lo}-{hi})", "distribution": "lognormal",
+                "input": name.strip(), "median": float(median), "likely": [float(lo), float(hi)]}
+    except ValueError:
+        raise EmulatorInputError(f"cannot read {text!r} as NAME=MEDIAN:LOW-HIGH (e.g. ecs_eff=3.0:2.5-4.0) "
+                                 "or a CSV file of samples") from None
 
 
 def lognormal_samples(median: float, likely: tuple[float, float], n: int, rng) -> np.ndarray:

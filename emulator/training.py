@@ -78,6 +78,19 @@ def _series_path(extract_dir: Path, model: str, member: str) -> Path:
     return extract_dir / "series" / f"{model}_{member}.nc"
 
 
+def _series_index(extract_dir: Path) -> dict:
+    """{(model, member): path} from the files' own root attributes (file names may be sanitised)."""
+    index = {}
+    for path in sorted(Path(extract_dir, "series").glob("*.nc")):
+        try:
+            root, _ = _groups(path)
+        except OSError:
+            continue
+        if "model" in root and "member" in root:
+            index[(str(root["model"]), str(root["member"]))] = path
+    return index
+
+
 def _groups(path: Path) -> tuple[dict, dict]:
     """Root attributes and {group name: group attributes} of a series file."""
     with netCDF4.Dataset(path) as nc:
@@ -151,6 +164,7 @@ def load_training_set(extract_dir, scenario: str | None = None, inputs=("ecs_eff
         raise EmulatorInputError(f"scenario {scenario!r} not found; available: {', '.join(sorted(available)) or 'none'}",
                                  path=extract_dir)
 
+    index = _series_index(extract_dir)
     skipped, records = [], []
     for _, row in table.iterrows():
         model, member = str(row["model"]), str(row["member"])
@@ -159,7 +173,7 @@ def load_training_set(extract_dir, scenario: str | None = None, inputs=("ecs_eff
             bad = [c for c, v in zip(inputs, values) if not np.isfinite(v)]
             skipped.append((model, member, f"missing input {', '.join(bad)}"))
             continue
-        path = _series_path(extract_dir, model, member)
+        path = index.get((model, member), _series_path(extract_dir, model, member))
         if not path.exists():
             skipped.append((model, member, f"no series file {path.name}"))
             continue

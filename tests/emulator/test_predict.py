@@ -100,3 +100,14 @@ def test_grid_parse_and_bad_cases(fitted):
         parse_point("ecs_eff:3.7")
     with pytest.raises(EmulatorInputError, match="unknown input"):
         predict_cases(em, [point_case({"ecs_eff": 3.0, "tcr": 2.0})], training_X=X, years=YEARS)
+
+
+def test_parse_distribution_text():
+    from emulator.predict import parse_distribution
+    spec = parse_distribution("ecs_eff=3.0:2.5-4.0")
+    assert spec["median"] == 3.0 and spec["likely"] == [2.5, 4.0] and spec["input"] == "ecs_eff"
+    assert parse_distribution("my_samples.csv") == {"samples_file": "my_samples.csv"}
+    with pytest.raises(EmulatorInputError, match="NAME=MEDIAN:LOW-HIGH"):
+        parse_distribution("ecs_eff=3.0")
+    case = case_from_mapping(spec, ("ecs_eff",), 50, np.random.default_rng(0))
+    assert case.samples.shape == (50, 1)

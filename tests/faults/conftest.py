@@ -1,7 +1,8 @@
 """Fault suite: a good tiny archive, extracted once as the clean reference, and tools to break a copy.
 
-Three invented models, each with a control (linear drift, small energy leak), an abrupt-4xCO2 run lying
-exactly on a Gregory line and a short 1pctCO2 run. Values are constant within a year and over the grid,
+Two invented models, each with a control (linear drift, small energy leak) and an abrupt-4xCO2 run lying
+exactly on a Gregory line (few files keep the suite fast: each fault costs one extraction, so the 1pctCO2
+run, whose faults would be the same, is left out unless asked for). Values are constant within a year and over the grid,
 so annual global means are exact in any calendar and under any weights; the numbers are invented for
 tests. A fault test copies the archive (`broken_copy`), breaks one thing, extracts, and compares.
 """
@@ -18,10 +19,11 @@ from extractor.pipeline import extract
 from extractor.settings import ExtractionSettings
 from tests.extractor.conftest import write_monthly_file, write_run
 
-MODELS = ("ALDER-1", "BIRCH-2", "CEDAR-3")
+MODELS = ("BIRCH-2", "CEDAR-3")
+LEAKS = {"BIRCH-2": 0.8, "CEDAR-3": 0.2}  # mean control N (W m-2): BIRCH-2 is flagged energy_leak
 TARGET = "CEDAR-3"  # the model a fault test breaks; the others must come out unchanged
 MEMBER = "r1i1p1f1"
-CONTROL_YEARS, ABRUPT_YEARS, ONEPCT_YEARS, BRANCH_YEAR = 60, 40, 10, 10
+CONTROL_YEARS, ABRUPT_YEARS, BRANCH_YEAR = 60, 40, 10
 F4X, FEEDBACK = 7.0, -1.75
 SETTINGS = ExtractionSettings(fit_years=(1, 40), early_years=(1, 10), late_years=(11, 40), tcr_years=(1, 5),
                               bootstrap_samples=100)
@@ -31,8 +33,9 @@ def delta_t(year):
     return 4.0 * (1.0 - np.exp(-year / 5.0))
 
 
-def write_model(root, model, *, leak=0.2, feedback=FEEDBACK, abrupt_years=ABRUPT_YEARS, branch_year=BRANCH_YEAR):
-    """One model's control, abrupt-4xCO2 (exactly ΔN = F4X + feedback·ΔT after drift removal) and 1pctCO2."""
+def write_model(root, model, *, leak=0.2, feedback=FEEDBACK, abrupt_years=ABRUPT_YEARS, branch_year=BRANCH_YEAR,
+                onepct_years=0):
+    """One model's control, abrupt-4xCO2 (exactly ΔN = F4X + feedback·ΔT after drift removal), 1pctCO2 if asked."""
     year_c = np.arange(CONTROL_YEARS * 12) // 12
     n_c = leak - 0.003 * year_c
     write_run(root, model, "piControl", nyears=CONTROL_YEARS, start_year=1850, areacella=True,
@@ -47,15 +50,17 @@ def write_model(root, model, *, leak=0.2, feedback=FEEDBACK, abrupt_years=ABRUPT
     write_run(root, model, "abrupt-4xCO2", nyears=abrupt_years, start_year=1850, attrs=attrs,
               values={"tas": 287.0 + 0.002 * ctl_year + d_t, "rsdt": np.full(year_a.size, 340.0),
                       "rsut": np.full(year_a.size, 100.0), "rlut": 240.0 - n_a})
-    year_p = np.arange(ONEPCT_YEARS * 12) // 12
-    write_run(root, model, "1pctCO2", nyears=ONEPCT_YEARS, start_year=1850, attrs=attrs,
+    if not onepct_years:
+        return
+    year_p = np.arange(onepct_years * 12) // 12
+    write_run(root, model, "1pctCO2", nyears=onepct_years, start_year=1850, attrs=attrs,
               values={"tas": 287.0 + 0.002 * (year_p + branch_year) + 0.1 * (year_p + 1)})
 
 
 def write_archive(root, models=MODELS) -> Path:
     root = Path(root)
     for model in models:
-        write_model(root, model)
+        write_model(root, model, leak=LEAKS.get(model, 0.2))
     return root
 
 

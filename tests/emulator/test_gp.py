@@ -137,3 +137,17 @@ def test_gridded_physics_mean_matches_exact_response():
     mean = PhysicsMean(60, np.linspace(0.0, 5.0, 60), **MEAN)
     ecs = np.exp(np.random.default_rng(0).uniform(np.log(1.5), np.log(6.0), PhysicsMean.exact_limit + 500))
     np.testing.assert_allclose(mean(ecs[:, None]), mean.response(ecs), atol=1e-8, rtol=0)
+
+
+def test_gridded_gp_predictions_match_exact():
+    # Above exact_limit points with one input, GP mean/sd are interpolated from a dense grid: within 1e-5 of
+    # the component scale against sklearn's own predictions (our accuracy claim, reference library sklearn).
+    ecs = np.linspace(2.0, 5.0, 9)
+    Y = step_ensemble(ecs, 40, noise=0.08, seed=5)
+    em = PathwayEmulator(max_components=3).fit(ecs[:, None], Y, forcing=np.full(40, 3.71), mean_params=MEAN)
+    x = np.random.default_rng(1).uniform(1.5, 6.0, (em.exact_limit + 100, 1))
+    mu, sd = em.component_predictions(x)
+    mu0, sd0 = em._component_predictions_exact(em._standardise(x))
+    scale = np.abs(em.scores_).max(axis=0)
+    assert np.all(np.abs(mu - mu0).max(axis=0) < 1e-5 * scale)
+    assert np.all(np.abs(sd - sd0).max(axis=0) < 1e-5 * scale)

@@ -279,7 +279,7 @@ class PathwayEmulator(BaseEstimator):
 
         With one input and more than `exact_limit` points (large input distributions), each GP is evaluated
         exactly on a `grid_points` grid spanning them and linearly interpolated (the Matérn 5/2 and RBF posterior
-        mean and sd are smooth; error below 1e-6 of the component's scale, tested).
+        mean and sd are smooth; error below 1e-3 of the component's scale, far below the predictive sd; tested).
         """
         self._check_fitted()
         Xs = self._standardise(X)

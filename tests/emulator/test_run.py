@@ -97,3 +97,18 @@ def test_format_summary_mentions_scores_and_outputs(result):
     from emulator import format_summary
     text = format_summary(result[0].summary)
     assert "RMSE" in text and "coverage" in text and str(result[1]) in text
+
+
+def test_two_inputs_and_physics_mean_off(extract_dir, tmp_path):
+    quick = dict(FAST, validate=False)
+    two = emulate(extract_dir[0], tmp_path / "two", EmulatorSettings(inputs=("ecs_eff", "tcr"), **quick),
+                  PredictionSettings(n_samples=200, figures=False))
+    table = pd.read_csv(tmp_path / "two" / "pathways.csv", keep_default_na=False)
+    assert list(table.columns[:4]) == ["case", "ecs_eff", "tcr", "year"]
+    off = emulate(extract_dir[0], tmp_path / "off", EmulatorSettings(physics_mean=False, **quick),
+                  PredictionSettings(cases=({"ecs_eff": 3.5},), grid={"ecs_eff": [2.5, 4.5]}, n_samples=200,
+                                     figures=False))
+    assert off.summary["forcing"].startswith("none") and off.summary["n_cases"] == 3
+    ends = off.prediction.dataset["mean"].values[:, -10:].mean(axis=1)
+    # without the physics mean, warming still rises with ECS (the GP alone carries it; common practice)
+    assert ends[1] < ends[0] < ends[2]

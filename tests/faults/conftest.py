@@ -34,11 +34,11 @@ def delta_t(year):
 
 
 def write_model(root, model, *, leak=0.2, feedback=FEEDBACK, abrupt_years=ABRUPT_YEARS, branch_year=BRANCH_YEAR,
-                onepct_years=0):
+                onepct_years=0, **run_options):
     """One model's control, abrupt-4xCO2 (exactly ΔN = F4X + feedback·ΔT after drift removal), 1pctCO2 if asked."""
     year_c = np.arange(CONTROL_YEARS * 12) // 12
     n_c = leak - 0.003 * year_c
-    write_run(root, model, "piControl", nyears=CONTROL_YEARS, start_year=1850, areacella=True,
+    write_run(root, model, "piControl", nyears=CONTROL_YEARS, start_year=1850, areacella=True, **run_options,
               values={"tas": 287.0 + 0.002 * year_c, "rsdt": np.full(year_c.size, 340.0),
                       "rsut": np.full(year_c.size, 100.0), "rlut": 240.0 - n_c})
     year_a = np.arange(abrupt_years * 12) // 12
@@ -47,13 +47,14 @@ def write_model(root, model, *, leak=0.2, feedback=FEEDBACK, abrupt_years=ABRUPT
     n_a = leak - 0.003 * ctl_year + F4X + feedback * d_t
     attrs = {"parent_experiment_id": "piControl", "branch_time_in_parent": 365.0 * branch_year,
              "parent_time_units": "days since 1850-01-01 00:00:00", "parent_variant_label": MEMBER}
-    write_run(root, model, "abrupt-4xCO2", nyears=abrupt_years, start_year=1850, attrs=attrs,
+    attrs.update(run_options.pop("attrs", {}))
+    write_run(root, model, "abrupt-4xCO2", nyears=abrupt_years, start_year=1850, attrs=attrs, **run_options,
               values={"tas": 287.0 + 0.002 * ctl_year + d_t, "rsdt": np.full(year_a.size, 340.0),
                       "rsut": np.full(year_a.size, 100.0), "rlut": 240.0 - n_a})
     if not onepct_years:
         return
     year_p = np.arange(onepct_years * 12) // 12
-    write_run(root, model, "1pctCO2", nyears=onepct_years, start_year=1850, attrs=attrs,
+    write_run(root, model, "1pctCO2", nyears=onepct_years, start_year=1850, attrs=attrs, **run_options,
               values={"tas": 287.0 + 0.002 * (year_p + branch_year) + 0.1 * (year_p + 1)})
 
 

@@ -1,6 +1,7 @@
 """Area weighting: cell areas of a grid and lazy global means over it."""
 from __future__ import annotations
 
+import dask.array as dask_array
 import numpy as np
 import xarray as xr
 
@@ -181,15 +182,34 @@ def global_mean(da: xr.DataArray, weights: xr.DataArray) -> xr.DataArray:
     missing = [d for d in dims if d not in da.dims]
     if missing:
         raise ArchiveError(f"variable {da.name} lacks the grid dims {missing}")
-    values = da.astype(np.float64)
-    present = values.notnull()
-    w = weights.astype(np.float64).drop_vars([c for c in weights.coords if c not in weights.dims])
-    # align on position: the weights were checked to be on this grid
-    w = w.assign_coords({d: values[d] for d in dims if d in values.coords})
-    numerator = (values.fillna(0.0) * w).sum(dims)
-    denominator = (present * w).sum(dims)
-    mean = (numerator / denominator.where(denominator > 0)).rename(da.name)
+    other = [d for d in da.dims if d not in dims]
+    values = da.transpose(*other, *dims)
+    w = np.asarray(weights.transpose(*dims).values, dtype=np.float64)
+    data = values.data
+    if isinstance(data, dask_array.Array):
+        # The grid dims whole in every chunk, so each chunk gives its own time steps' means:
+        # one task per chunk, no combine step (a chunk → aggregate reduction in one pass).
+        data = data.rechunk({values.get_axis_num(d): -1 for d in dims})
+        out = data.map_blocks(_weighted_block_mean, w, len(dims), drop_axis=list(range(len(other), da.ndim)),
+                              dtype=np.float64)
+    else:
+        out = _weighted_block_mean(np.asarray(data), w, len(dims))
+    mean = xr.DataArray(out, dims=other, coords={c: v for c, v in values.coords.items()
+                                                   if set(v.dims) <= set(other)}, name=da.name)
     mean.attrs = dict(da.attrs)
     methods = str(da.attrs.get("cell_methods", "")).strip()
     mean.attrs["cell_methods"] = f"{methods} area: mean".strip()
     return mean
+
+
+def _weighted_block_mean(block: np.ndarray, weights: np.ndarray, n_grid_dims: int) -> np.ndarray:
+    """sum(w·x) / sum(w) over the trailing grid axes, cells with missing x left out of both; float64."""
+    x = np.asarray(block, dtype=np.float64)
+    present = np.isfinite(x)
+    axes = tuple(range(x.ndim - n_grid_dims, x.ndim))
+    numerator = np.where(present, x, 0.0) * weights
+    denominator = present * weights
+    num = numerator.sum(axis=axes)
+    den = denominator.sum(axis=axes)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(den > 0, num / np.where(den > 0, den, 1.0), np.nan)

@@ -20,7 +20,10 @@ from .means import area_weights, find_lat_lon, global_mean
 from .settings import ExtractionSettings
 
 #: time chunk of the lazy arrays: ten years of monthly fields
-DEFAULT_CHUNKS = {"time": 120}
+DEFAULT_CHUNKS = None  # sized per file: whole years, about CHUNK_BYTES of data per chunk
+# A chunk of ~64 MB keeps task overhead small on coarse grids and memory bounded on fine ones
+# (a 1° month of float32 is 0.26 MB, so ~20 years; an 8×16 grid takes a whole file in one chunk).
+CHUNK_BYTES = 64 * 2**20
 
 #: variables a run must have unless the caller says otherwise (DESIGN.md: tas, rsdt, rsut, rlut)
 REQUIRED_VARIABLES = ExtractionSettings().required_variables
@@ -58,7 +61,7 @@ def open_run(
     run : RunFiles
         From `extractor.catalog.scan`.
     chunks : dict, optional
-        Dask chunks (default `DEFAULT_CHUNKS`).
+        Dask chunks; default: whole years, about `CHUNK_BYTES` per chunk, chosen per file.
     required : tuple of str
         Variables the run must have (default `REQUIRED_VARIABLES`; pass
         ``settings.required_variables`` to follow a config).
@@ -78,7 +81,7 @@ def open_run(
         not monthly, gaps, overlaps, duplicated or non-monotonic times, grids that differ
         between variables, files of one run disagreeing on who they are.
     """
-    chunks = dict(DEFAULT_CHUNKS if chunks is None else chunks)
+    chunks = None if chunks is None else dict(chunks)
     flags: list[str] = list(run.flags)
     missing = [v for v in required if v not in run.files]
     if missing or not run.files:
@@ -210,10 +213,23 @@ def _error(run: RunFiles, path, message: str, hint: str | None = None) -> Archiv
     return ArchiveError(message, path=path, model=run.model, member=run.member, experiment_id=run.experiment_id, hint=hint)
 
 
-def _open_file(path: Path, variable: str, run: RunFiles, chunks: dict) -> tuple[xr.Dataset, str, bool]:
+def _time_chunks(raw: xr.Dataset, variable: str) -> dict:
+    """Whole years of about `CHUNK_BYTES` of `variable` per chunk."""
+    da = raw[variable]
+    per_step = max(1, int(np.prod([n for d, n in da.sizes.items() if d != "time"])) * da.dtype.itemsize)
+    years = max(1, CHUNK_BYTES // (per_step * 12))
+    return {"time": int(min(years * 12, max(da.sizes.get("time", 1), 1)))}
+
+
+def _open_file(path: Path, variable: str, run: RunFiles, chunks: dict | None) -> tuple[xr.Dataset, str, bool]:
     """One file, lazily, with checks on the variable, its units and the calendar."""
     try:
-        raw = xr.open_dataset(path, engine="netcdf4", decode_times=False, chunks=chunks)
+        if chunks is None:
+            raw = xr.open_dataset(path, engine="netcdf4", decode_times=False)
+            if variable in raw.data_vars and "time" in raw[variable].dims:
+                raw[variable] = raw[variable].chunk(_time_chunks(raw, variable))
+        else:
+            raw = xr.open_dataset(path, engine="netcdf4", decode_times=False, chunks=chunks)
     except Exception as err:  # netCDF4 raises OSError, xarray ValueError; both mean unreadable
         text = str(err).replace(f": {str(path)!r}", "").replace(str(path), "the file")
         raise _error(run, path, f"cannot be read ({type(err).__name__}: {text})",

@@ -316,12 +316,19 @@ def _process_unit(unit: Unit, series: dict[str, xr.Dataset], settings, out_dir: 
     flags = list(unit.flags)
     annual = {}
     for run in unit.runs():
-        ds = annual_means(series[run.label])
+        try:
+            ds = annual_means(series[run.label])
+        except ArchiveError as err:
+            raise _run_error(err.message, run, None, err.hint or "check the time axis of the run's files") from None
         ds = toa_budget(ds)
         flags.extend(f for f in str(ds.attrs.get("flags", "")).split(";") if f)
         annual[run.experiment_id] = ds
     control = annual[unit.control.experiment_id]
-    groups = {settings.control: _group(control_residuals(control, order=settings.drift_order), "control")}
+    try:
+        residuals = control_residuals(control, order=settings.drift_order)
+    except ControlError as err:
+        raise _run_error(err, unit.control, control, "supply a longer control run") from None
+    groups = {settings.control: _group(residuals, "control")}
 
     abrupt_anom = tcr_value = None
     if unit.abrupt is not None:
@@ -340,7 +347,12 @@ def _process_unit(unit: Unit, series: dict[str, xr.Dataset], settings, out_dir: 
             raise _run_error(err, unit.onepct, onepct_anom, _window_hint(settings, ("tcr_years",))) from None
 
     others = {r.experiment_id: annual[r.experiment_id] for r in unit.others}
-    chains, more = _scenario_chains(others, unit, settings)
+    try:
+        chains, more = _scenario_chains(others, unit, settings)
+    except ControlError as err:
+        raise ArchiveError(_message(err), model=unit.model, member=unit.member,
+                           hint="check parent_experiment_id and the years of the scenario runs, or leave them out "
+                           "with [archive] scenarios in the config") from None
     flags.extend(more)
     for exp_id, ds in chains.items():
         anom, more = _anomalies(ds, control, settings, next((r for r in unit.others if r.experiment_id == exp_id),
@@ -523,10 +535,11 @@ def _who(attrs) -> str:
     return " ".join(str(attrs[k]) for k in ("model", "member", "experiment_id") if attrs.get(k))
 
 
-def _run_error(err: BaseException, run: RunFiles | None, annual: xr.Dataset | None, hint: str) -> ArchiveError:
+def _run_error(err: BaseException | str, run: RunFiles | None, annual: xr.Dataset | None,
+               hint: str) -> ArchiveError:
     """A control or fit-window problem as a one-line error naming the run's first file and what to do."""
     attrs = dict(annual.attrs) if annual is not None else {}
-    text = _message(err)
+    text = _message(err) if isinstance(err, BaseException) else " ".join(err.split())
     who = _who(attrs)
     if who:
         text = text.removeprefix(f"{who}: ").removeprefix(f"{who} ")
@@ -534,7 +547,8 @@ def _run_error(err: BaseException, run: RunFiles | None, annual: xr.Dataset | No
         text = f"for {attrs['experiment_id']}: {text}"
     files = run.all_files() if run is not None else []
     return ArchiveError(text, path=files[0] if files else None,
-                        model=run.model if run else attrs.get("model"), member=run.member if run else attrs.get("member"),
+                        model=run.model if run else attrs.get("model"),
+                        member=run.member if run else attrs.get("member"),
                         experiment_id=run.experiment_id if run else attrs.get("experiment_id"), hint=hint)
 
 

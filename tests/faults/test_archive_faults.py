@@ -324,7 +324,8 @@ def test_empty_archive_is_a_failure_not_a_crash(tmp_path):
     assert not result.ok and result.rows == []
     (failure,) = result.failures
     assert failure.what == "archive" and "\n" not in failure.message
-    assert "holds no monthly files of tas" in failure.message and "nothing to extract — check the path" in failure.message
+    assert "holds no monthly files of tas" in failure.message
+    assert "nothing to extract — check the path" in failure.message
     assert failure.message in (tmp_path / "out" / "report.md").read_text()
     assert (tmp_path / "out" / "sensitivity.csv").read_text().count("\n") == 1  # the header only
 
@@ -333,7 +334,8 @@ def test_archive_without_matching_runs(clean_archive, broken_copy, tmp_path):
     result = run_extract(clean_archive, tmp_path / "out", dataclasses.replace(SETTINGS, include_models=("OAK-7",)))
     (failure,) = result.failures
     assert not result.ok
-    assert "of the models OAK-7" in failure.message and "include_models / exclude_models in the config" in failure.message
+    assert "of the models OAK-7" in failure.message
+    assert "include_models / exclude_models in the config" in failure.message
     roles = run_extract(clean_archive, tmp_path / "out2", dataclasses.replace(SETTINGS, control="control-1950"))
     assert not roles.ok and roles.rows == [] and sorted(f.model for f in roles.failures) == sorted(MODELS)
     for failure in roles.failures:

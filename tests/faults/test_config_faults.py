@@ -18,7 +18,8 @@ CASES = {
                    ["[extraction] bootstrap_samples must be an integer", "got \"many\""]),
     "window not a pair": ("[extraction]\nfit_years = 150\n",
                           ["[extraction] fit_years must be an array of 2 integers [start, end]"]),
-    "window reversed": ("[extraction]\nfit_years = [150, 1]\n", ["fit_years must be [start, end] with 1 <= start <= end"]),
+    "window reversed": ("[extraction]\nfit_years = [150, 1]\n",
+                        ["fit_years must be [start, end] with 1 <= start <= end"]),
     "early segment longer than the fit window": (
         "[extraction]\nfit_years = [1, 100]\nearly_years = [1, 120]\nlate_years = [21, 100]\n",
         ["early_years [1, 120] must lie within fit_years [1, 100]", "shorten it or widen fit_years"]),

@@ -156,6 +156,13 @@ def case_from_mapping(spec: dict, inputs, n_samples: int, rng) -> Case:
     'input', 'median', 'likely': [lo, hi], <other inputs>} ; or {'samples_file': path}."""
     spec = dict(spec)
     name = spec.pop("name", None)
+    # the config's form: <input> = {distribution = "lognormal", median = …, likely = [lo, hi]}
+    nested = [k for k, v in spec.items() if isinstance(v, dict)]
+    if len(nested) > 1:
+        raise EmulatorInputError(f"case {name!r}: only one input may be a distribution, got {', '.join(nested)}")
+    if nested:
+        key = nested[0]
+        spec.update(spec.pop(key), input=key)
     if "samples_file" in spec:
         return samples_file_case(spec["samples_file"], inputs, name)
     if "distribution" in spec:

@@ -136,8 +136,8 @@ def _cases(prediction: PredictionSettings, ts: TrainingSet, rng):
     cases = [case_from_mapping(spec, ts.inputs, prediction.n_samples, rng) for spec in prediction.cases]
     if prediction.grid:
         cases += grid_cases(prediction.grid)
-    if not cases:
-        cases = default_cases(ts.X, ts.models, ts.inputs)
+    if not cases or prediction.include_default_cases:
+        cases = default_cases(ts.X, ts.models, ts.inputs) + cases
     names = [c.name for c in cases]
     if len(set(names)) != len(names):
         raise EmulatorInputError(f"case names repeat: {', '.join(sorted({n for n in names if names.count(n) > 1}))}")

@@ -36,6 +36,9 @@ class PredictionSettings:
     n_samples: int = 2000
     random_state: int = 0
     grid: dict | None = None  # {input: [values…]}: every combination becomes a point case
+    # also predict the ensemble's own gaps (midpoints between neighbouring models, one case beyond the range)
+    # when other cases are given; with no cases at all they are always predicted
+    include_default_cases: bool = False
     crossing_window: int = 20  # years of the running mean whose first exceedance dates a crossing
     figures: bool = True
     max_fan_figures: int = 24  # a fan figure per case, up to this many

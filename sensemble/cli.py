@@ -27,16 +27,6 @@ def _grid(text: str) -> tuple[int, int]:
     return nlat, nlon
 
 
-def _assignment(text: str) -> tuple[str, float]:
-    name, sep, value = text.partition("=")
-    try:
-        if not sep:
-            raise ValueError
-        return name.strip(), float(value)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"{text!r}: expected NAME=VALUE, e.g. ecs_eff=3.7") from None
-
-
 def build_parser() -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(prog="sensemble", description="Climate sensitivity from model ensembles, "
                                      "and emulated warming pathways for sensitivities no model has.")
@@ -70,10 +60,11 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--out", required=True)
     p.add_argument("--config")
     p.add_argument("--scenario", help="experiment id of the target scenario")
-    p.add_argument("--at", type=_assignment, action="append", default=[], metavar="NAME=VALUE",
-                   help="predict at these inputs (repeatable; several names make one case)")
-    p.add_argument("--distribution", action="append", default=[], metavar="NAME=MEDIAN:LOW:HIGH",
-                   help="lognormal input distribution through a median and a likely (17–83 %%) range")
+    p.add_argument("--at", action="append", default=[], metavar="NAME=VALUE[,NAME=VALUE]",
+                   help="predict at these inputs, e.g. ecs_eff=3.7 (repeatable: one case each)")
+    p.add_argument("--distribution", action="append", default=[], metavar="NAME=MEDIAN:LOW-HIGH|FILE.csv",
+                   help="lognormal input through a median and a likely (17–83 %%) range, e.g. ecs_eff=3.0:2.5-4.0, "
+                        "or a CSV file of input samples (repeatable)")
     p.add_argument("--quiet", action="store_true")
 
     p = sub.add_parser("run", help="a whole batch as a TOML config says")
@@ -136,11 +127,10 @@ def _print_table(rows, say):
 
 
 def _run_emulate(source, out, emulator_settings, prediction, say):
-    from emulator.run import emulate
+    from emulator import emulate, format_summary
 
-    result = emulate(source, out, emulator_settings, prediction)
-    for line in result.summary_lines():
-        say(line)
+    result = emulate(source, out, emulator_settings, prediction, progress=say)
+    say(format_summary(result.summary))
     return result
 
 
@@ -188,26 +178,15 @@ def cmd_extract(args) -> int:
 
 
 def _cases(args) -> tuple[dict, ...]:
-    if not args.at:
-        return ()
-    case = {"name": ",".join(f"{k}={v:g}" for k, v in args.at)}
-    case.update(dict(args.at))
-    return (case,)
+    """One case per --at (NAME=VALUE[,NAME=VALUE…]) and per --distribution."""
+    from emulator import parse_distribution, parse_point
 
-
-def _distributions(args) -> tuple[dict, ...]:
-    out = []
-    for text in args.distribution:
-        name, _, spec = text.partition("=")
-        try:
-            median, low, high = (float(v) for v in spec.split(":"))
-        except ValueError:
-            raise UsageError(f"--distribution {text!r}: expected NAME=MEDIAN:LOW:HIGH, e.g. ecs_eff=3:2.5:4") from None
-        if not (0 < low < median < high):
-            raise UsageError(f"--distribution {text!r}: needs 0 < LOW < MEDIAN < HIGH")
-        out.append({"name": f"{name}~lognormal({median:g},{low:g}-{high:g})",
-                    name: {"distribution": "lognormal", "median": median, "likely": [low, high]}})
-    return tuple(out)
+    cases = []
+    for text in args.at:
+        case = parse_point(text)
+        cases.append({"name": ",".join(f"{k}={v:g}" for k, v in case.items()), **case})
+    cases += [parse_distribution(text) for text in args.distribution]
+    return tuple(cases)
 
 
 def cmd_emulate(args) -> int:
@@ -221,9 +200,8 @@ def cmd_emulate(args) -> int:
         emulator_settings = dataclasses.replace(emulator_settings, scenario=args.scenario)
     prediction = config.prediction
     cases = _cases(args)
-    dists = _distributions(args)
-    if cases or dists:
-        prediction = dataclasses.replace(prediction, cases=cases + dists)
+    if cases:
+        prediction = dataclasses.replace(prediction, cases=cases)
     _run_emulate(args.source, args.out, emulator_settings, prediction, _say(args.quiet))
     _write_effective_config(config, Path(args.out))
     return EXIT_OK
@@ -271,9 +249,12 @@ def main(argv: list[str] | None = None) -> int:
         print(f"sensemble {args.command}: {err}", file=sys.stderr)
         return EXIT_USAGE
     except Exception as err:  # noqa: BLE001
+        from emulator import EmulatorInputError
+
+        from .compute import ComputeError
         from .config import ConfigError
 
-        if isinstance(err, ConfigError):
+        if isinstance(err, (ConfigError, EmulatorInputError, ComputeError)):
             print(f"sensemble {args.command}: {err}", file=sys.stderr)
             return EXIT_USAGE
         raise

@@ -226,13 +226,15 @@ def scan(root: str | Path, settings: ExtractionSettings | None = None) -> Catalo
             if facets.table_id == FIXED_TABLE:
                 areas.append(facets)
             else:
-                catalog.problems.append(f"model {facets.source_id}: file {path}: areacella outside table fx — file skipped")
+                catalog.problems.append(f"model {facets.source_id}: file {path}: areacella outside table fx — "
+                                        "file skipped; publish cell areas under table fx")
             continue
         if facets.variable_id not in wanted:
             continue
         if not _is_monthly(facets.table_id):
             catalog.problems.append(
-                f"model {facets.source_id}: file {path}: table {facets.table_id} is not monthly — file skipped"
+                f"model {facets.source_id}: file {path}: table {facets.table_id} is not monthly — file skipped; "
+                "give monthly fields (a table such as Amon)"
             )
             continue
         key = (facets.source_id, facets.member_id, facets.experiment_id, facets.variable_id, facets.grid_label)
@@ -256,7 +258,7 @@ def scan(root: str | Path, settings: ExtractionSettings | None = None) -> Catalo
         for other in sorted(set(grids) - {grid}):
             catalog.problems.append(
                 f"model {model} member {member}: {experiment} has {', '.join(sorted(grids[other]))} "
-                f"also on grid {other}; using grid {grid}"
+                f"also on grid {other}; using grid {grid} — to use grid {other}, leave the grid {grid} files out"
             )
         chosen = grids[grid]
         files = {

@@ -303,15 +303,17 @@ def test_window_past_a_short_run_in_the_config_names_its_key(clean, clean_archiv
 # 14 ------------------------------------------------------------------------------ non-physical run
 
 
-def test_positive_feedback_is_flagged_and_reported(clean, broken_copy, tmp_path):
+@pytest.mark.parametrize("feedback", [0.3, -0.15], ids=["positive_feedback", "ecs_above_20K"])
+def test_nonphysical_run_is_flagged_and_reported(clean, broken_copy, tmp_path, feedback):
     for path in list(broken_copy.rglob(f"*_{TARGET}_*.nc")):
         path.unlink()
-    write_model(broken_copy, TARGET, feedback=0.3)
+    write_model(broken_copy, TARGET, feedback=feedback)
     result = extract_broken(broken_copy, tmp_path)
     row = assert_flagged(result, clean, "nonphysical")
-    # values are reported, not hidden: ecs_eff = -F / (2 λ) (Gregory et al. 2004) is negative here
-    assert row["feedback"] == pytest.approx(0.3, abs=1e-4)
-    assert row["ecs_eff"] == pytest.approx(-F4X / (2 * 0.3), abs=1e-3)
+    # values are reported, not hidden: ecs_eff = -F / (2 λ) (Gregory et al. 2004): -11.7 K or 23.3 K here
+    assert row["feedback"] == pytest.approx(feedback, abs=1e-4)
+    assert row["ecs_eff"] == pytest.approx(-F4X / (2 * feedback), rel=1e-4)
+    assert not 0 < row["ecs_eff"] <= SETTINGS.ecs_max
     assert FEEDBACK < 0  # the clean models are stable
 
 

@@ -24,9 +24,19 @@ RUNNER = "import sys; from tests.faults.conftest import run_extract; run_extract
 
 
 def start_extraction(archive, out) -> subprocess.Popen:
+    """An extraction in a child process; its messages go to ``<out>.log`` (a pipe could fill and stall it)."""
     env = dict(os.environ, PYTHONPATH=str(ROOT) + os.pathsep + os.environ.get("PYTHONPATH", ""))
-    return subprocess.Popen([sys.executable, "-c", RUNNER, str(archive), str(out)], cwd=ROOT, env=env,
-                            stdout=subprocess.DEVNULL, stderr=subprocess.PIPE)
+    with open(f"{out}.log", "ab") as log:
+        return subprocess.Popen([sys.executable, "-c", RUNNER, str(archive), str(out)], cwd=ROOT, env=env,
+                                stdout=log, stderr=log)
+
+
+def locked(out: Path) -> bool:
+    """The output folder's lock exists and holds its owner's pid."""
+    try:
+        return bool((out / LOCK_NAME).read_text().strip())
+    except FileNotFoundError:
+        return False
 
 
 def wait_for(condition, proc, timeout=120.0) -> bool:
@@ -75,7 +85,7 @@ def test_killed_extractions_leave_whole_files_and_resume_to_the_same_table(clean
     out = tmp_path / "out"
     kill_points = [
         lambda: False,  # after 0.5 s: still starting up
-        lambda: (out / LOCK_NAME).exists(),  # as soon as it holds the output folder
+        lambda: locked(out),  # as soon as it holds the output folder
         lambda: bool(list((out / "series").glob(".*.part"))),  # while a series file is being written
         lambda: bool(list(out.glob(".sensitivity.*.part"))),  # while the table is being written
     ]
@@ -102,12 +112,12 @@ def test_second_extraction_into_a_busy_folder_refuses(clean, clean_archive, tmp_
     out = tmp_path / "out"
     first = start_extraction(clean_archive, out)
     try:
-        assert wait_for(lambda: (out / LOCK_NAME).exists(), first), first.stderr.read().decode()
+        assert wait_for(lambda: locked(out), first), Path(f"{out}.log").read_text()
         with pytest.raises(OutputInUseError) as caught:
             run_extract(clean_archive, out)
         assert str(caught.value) == (f"output folder {out} is in use by process {first.pid} — "
                                      "wait for it or choose another --out")
-        assert first.wait(timeout=120) == 0, first.stderr.read().decode()
+        assert first.wait(timeout=120) == 0, Path(f"{out}.log").read_text()
     finally:
         kill(first)
     # the refused run touched nothing: the first one's table is whole and its lock is gone
@@ -123,11 +133,7 @@ def test_stale_lock_of_a_dead_process_is_taken_over_and_noted(clean, clean_archi
     (out / LOCK_NAME).write_text(f"{dead.pid}\n")
     (out / ".sensitivity.csv.abc123.part").write_text("model,memb")  # left by the dead run
 
-    before = archive_checksums(clean_archive)
     result = run_extract(clean_archive, out)
-    # reading never modifies the archive (files are opened read-only)
-    assert archive_checksums(clean_archive) == before
-
     assert result.ok and len(result.rows) == len(clean.rows)
     assert f"took over the lock left by process {dead.pid}, which is no longer running" in " ".join(result.notes)
     assert "removed 1 unfinished temporary file(s)" in " ".join(result.notes)
@@ -138,6 +144,13 @@ def test_stale_lock_of_a_dead_process_is_taken_over_and_noted(clean, clean_archi
 def archive_checksums(root: Path) -> dict[str, tuple[str, int]]:
     return {str(p.relative_to(root)): (hashlib.sha256(p.read_bytes()).hexdigest(), p.stat().st_mtime_ns)
             for p in sorted(root.rglob("*")) if p.is_file()}
+
+
+def test_reading_never_modifies_the_archive(clean_archive, tmp_path):
+    before = archive_checksums(clean_archive)
+    result = run_extract(clean_archive, tmp_path / "out", force=True)
+    assert result.ok and result.computed
+    assert archive_checksums(clean_archive) == before  # same bytes, same modification times, no file added
 
 
 def test_lock_is_exclusive_within_a_process_and_released(tmp_path):

@@ -332,6 +332,15 @@ def test_empty_archive_is_a_failure_not_a_crash(tmp_path):
     assert (tmp_path / "out" / "sensitivity.csv").read_text().count("\n") == 1  # the header only
 
 
+def test_empty_archive_gives_exit_status_1_on_the_command_line(tmp_path, capsys):
+    from sensemble.cli import main
+
+    (tmp_path / "archive").mkdir()
+    assert main(["extract", str(tmp_path / "archive"), "--out", str(tmp_path / "out")]) == 1
+    captured = capsys.readouterr()
+    assert "nothing to extract" in captured.out + captured.err
+
+
 def test_archive_without_matching_runs(clean_archive, broken_copy, tmp_path):
     result = run_extract(clean_archive, tmp_path / "out", dataclasses.replace(SETTINGS, include_models=("OAK-7",)))
     (failure,) = result.failures

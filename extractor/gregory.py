@@ -231,11 +231,15 @@ def bootstrap_ecs(
 ) -> tuple[float, float]:
     """5–95 % interval of ``ecs_eff`` from a moving-block bootstrap over years.
 
-    Each bootstrap sample is built from blocks of ``block`` consecutive (ΔT, ΔN) pairs with
-    starts drawn uniformly among all ``n - block + 1`` positions, concatenated and cut to the
-    window length ``n`` (Künsch 1989 moving-block bootstrap, which keeps the year-to-year
-    autocorrelation of internal variability within a block); each sample is refitted by OLS.
-    Percentile interval. All samples are drawn and fitted at once (vectorised).
+    Each bootstrap sample is built from blocks of ``block`` consecutive (ΔT, ΔN) pairs,
+    concatenated and cut to the window length ``n`` (Künsch 1989 moving-block bootstrap, which
+    keeps the year-to-year autocorrelation of internal variability within a block); each sample
+    is refitted by OLS. Percentile interval. All samples are drawn and fitted at once (vectorised).
+
+    Blocks wrap around the end of the window (the circular block bootstrap of Politis & Romano
+    1992, from memory): with plain moving blocks the first and last years fall in fewer blocks
+    than the rest, and in an abrupt run those are the high-leverage early years, so the interval
+    was shifted towards higher ECS. Wrapping gives every year the same weight.
 
     Parameters
     ----------
@@ -255,8 +259,8 @@ def bootstrap_ecs(
         raise ValueError(f"bootstrap needs at least one sample; n_samples={n_samples}")
     rng = np.random.default_rng(seed)
     n_blocks = -(-n // block)
-    starts = rng.integers(0, n - block + 1, size=(int(n_samples), n_blocks))
-    index = (starts[:, :, None] + np.arange(block)).reshape(int(n_samples), n_blocks * block)[:, :n]
+    starts = rng.integers(0, n, size=(int(n_samples), n_blocks))
+    index = ((starts[:, :, None] + np.arange(block)) % n).reshape(int(n_samples), n_blocks * block)[:, :n]
     xs, ys = x[index], y[index]
     dx = xs - xs.mean(axis=1, keepdims=True)
     dy = ys - ys.mean(axis=1, keepdims=True)

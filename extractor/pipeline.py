@@ -203,7 +203,7 @@ def _anomalies(run_annual: xr.Dataset, control_annual: xr.Dataset, settings, run
     except ControlError as err:
         raise _run_error(err, run, run_annual, "fix branch_time_in_parent and parent_time_units in the global "
                          f"attributes of the {run_annual.attrs.get('experiment_id', 'run')} files so that they give "
-                         f"the branch as a time of the control, or delete both to start at the control's first year "
+                         "the branch as a time of the control, or delete both to start at the control's first year "
                          "(flagged branch_assumed)") from None
     try:
         anomalies, more = drift_corrected(run_annual, control_annual, year0, order=settings.drift_order,

@@ -1,20 +1,152 @@
 """The `sensemble` command: the only module that knows both stages.
 
-Exit status: 0 every run fine, 1 some runs failed (listed in the report), 2 bad usage or configuration.
+Exit status: 0 every run fine, 1 some runs failed (listed on stderr and in the report), 2 bad usage or
+configuration (one line on stderr, no traceback).
+
+Every command that writes an output folder also writes there `effective-config.toml` (the settings it
+actually used, command-line flags applied) and appends every message it prints, timestamped, to
+`sensemble.log` — also with `--quiet`, which only keeps the terminal silent.
 """
 from __future__ import annotations
 
 import argparse
 import dataclasses
+import logging
+import os
+import shlex
 import sys
 import time
+import traceback
 from pathlib import Path
 
 EXIT_OK, EXIT_RUNS_FAILED, EXIT_USAGE = 0, 1, 2
+LOG_NAME = "sensemble.log"
+CONFIG_NAME = "effective-config.toml"
+# seconds between two progress lines when the terminal cannot redraw a bar (a pipe, a CI log, the log file)
+PROGRESS_EVERY_S = 10.0
 
 
 class UsageError(Exception):
     """Bad usage or configuration: exit status 2 with a one-line message."""
+
+
+class _Parser(argparse.ArgumentParser):
+    """argparse, but a usage mistake is one line on stderr (exit status 2), pointing at --help."""
+
+    def error(self, message):
+        self.exit(EXIT_USAGE, f"{self.prog}: {message} (see {self.prog} --help)\n")
+
+
+# ------------------------------------------------------------------------------------------ messages
+
+
+class Console:
+    """Where a command's messages go: the terminal unless quiet, and the output folder's log file.
+
+    Messages said before the output folder is known are kept and written, with the time they were
+    said, as soon as `open_log` is called. Failures go to stderr even when quiet.
+    """
+
+    def __init__(self, quiet: bool = False):
+        self.quiet = quiet
+        self.log_path: Path | None = None
+        self._logger = logging.getLogger("sensemble.cli")
+        self._logger.propagate = False
+        self._logger.setLevel(logging.INFO)
+        self._handler: logging.Handler | None = None
+        self._pending: list[logging.LogRecord] = []
+
+    def __call__(self, message: str) -> None:
+        self.info(message)
+
+    def info(self, message: str, terminal: bool = True) -> None:
+        if terminal and not self.quiet:
+            print(message, flush=True)
+        self._record(logging.INFO, message)
+
+    def error(self, message: str) -> None:
+        print(message, file=sys.stderr, flush=True)
+        self._record(logging.ERROR, message)
+
+    def _record(self, level: int, message: str) -> None:
+        for line in str(message).splitlines() or [""]:
+            record = self._logger.makeRecord(self._logger.name, level, __file__, 0, line, None, None)
+            if self._handler is None:
+                self._pending.append(record)
+            else:
+                self._logger.handle(record)
+
+    def open_log(self, folder: Path, header: str) -> Path:
+        """Start appending to `folder/sensemble.log` (created with the folder); earlier messages follow the header."""
+        if self._handler is not None:
+            return self.log_path
+        folder.mkdir(parents=True, exist_ok=True)
+        self.log_path = folder / LOG_NAME
+        handler = logging.FileHandler(self.log_path, mode="a", encoding="utf-8")
+        formatter = logging.Formatter("%(asctime)s.%(msecs)03dZ %(levelname)-7s %(message)s", "%Y-%m-%dT%H:%M:%S")
+        formatter.converter = time.gmtime
+        handler.setFormatter(formatter)
+        self._handler = handler
+        self._logger.addHandler(handler)
+        # warnings of the libraries underneath (xarray, dask, scikit-learn) belong in the log as well
+        logging.captureWarnings(True)
+        logging.getLogger("py.warnings").addHandler(handler)
+        self._logger.handle(self._logger.makeRecord(self._logger.name, logging.INFO, __file__, 0, header, None, None))
+        for record in self._pending:
+            self._logger.handle(record)
+        self._pending.clear()
+        return self.log_path
+
+    def exception(self, message: str) -> None:
+        """A one-line error on stderr; the traceback goes to the log file only."""
+        self.error(message)
+        if self._handler is not None:
+            self._record(logging.ERROR, traceback.format_exc().rstrip())
+
+    def close(self) -> None:
+        if self._handler is not None:
+            self._logger.removeHandler(self._handler)
+            logging.getLogger("py.warnings").removeHandler(self._handler)
+            logging.captureWarnings(False)
+            self._handler.close()
+            self._handler = None
+
+
+class _CoarseProgress:
+    """Progress of a dask computation as a plain line every `every` seconds (for pipes, CI logs and the log file).
+
+    dask's `ProgressBar` redraws one line with carriage returns: right on a terminal, a flood anywhere else.
+    This callback reports done/total tasks at most every `every` seconds on the local schedulers
+    (a distributed cluster does not call local callbacks; its progress is left to the terminal bar).
+    """
+
+    def __init__(self, console: Console, terminal: bool, every: float = PROGRESS_EVERY_S):
+        from dask.callbacks import Callback
+
+        self.console, self.terminal, self.every = console, terminal, every
+        self._started = self._last = 0.0
+        self.callback = Callback(start=self._start, posttask=self._posttask, finish=self._finish)
+
+    def _start(self, dsk) -> None:
+        self._started = self._last = time.monotonic()
+
+    def _posttask(self, key, result, dsk, state, worker_id) -> None:
+        now = time.monotonic()
+        if now - self._last < self.every:
+            return
+        self._last = now
+        done = len(state["finished"])
+        total = done + sum(len(state[k]) for k in ("ready", "waiting", "running"))
+        self.console.info(f"  reading and reducing: {done}/{total} tasks ({100 * done / max(total, 1):.0f} %), "
+                          f"{now - self._started:.0f} s", terminal=self.terminal)
+
+    def _finish(self, dsk, state, errored) -> None:
+        if time.monotonic() - self._started >= self.every:
+            self.console.info(f"  reading and reducing: {'stopped by an error' if errored else 'done'} after "
+                              f"{time.monotonic() - self._started:.0f} s", terminal=self.terminal)
+
+
+# ------------------------------------------------------------------------------------------ parser
 
 
 def _grid(text: str) -> tuple[int, int]:
@@ -27,52 +159,78 @@ def _grid(text: str) -> tuple[int, int]:
     return nlat, nlon
 
 
+def _positive(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a whole number") from None
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"{text!r}: must be at least 1")
+    return value
+
+
+def _non_negative(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a whole number") from None
+    if value < 0:
+        raise argparse.ArgumentTypeError(f"{text!r}: must be 0 or more")
+    return value
+
+
 def build_parser() -> argparse.ArgumentParser:
-    parser = argparse.ArgumentParser(prog="sensemble", description="Climate sensitivity from model ensembles, "
-                                     "and emulated warming pathways for sensitivities no model has.")
+    parser = _Parser(prog="sensemble", description="Climate sensitivity from model ensembles, "
+                     "and emulated warming pathways for sensitivities no model has.",
+                     epilog="Exit status: 0 all runs fine, 1 some runs failed (listed), 2 bad usage or config.")
     parser.add_argument("--version", action="version", version=f"sensemble {_version()}")
     sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
 
     p = sub.add_parser("demo", help="build the demo archive, extract, emulate, write everything")
     p.add_argument("--out", default="demo-output", help="output folder (default: demo-output)")
-    p.add_argument("--models", type=int, default=8, help="number of invented models (default 8)")
-    p.add_argument("--seed", type=int, default=0)
+    p.add_argument("--models", type=_positive, default=8, help="number of invented models (default 8)")
+    p.add_argument("--seed", type=_non_negative, default=0)
     p.add_argument("--grid", type=_grid, default=None, help="NLATxNLON of the demo archive")
-    p.add_argument("--force", action="store_true", help="recompute everything")
-    p.add_argument("--quiet", action="store_true")
+    p.add_argument("--workers", type=_positive, help="dask workers (default: the machine's cores)")
+    p.add_argument("--force", action="store_true", help="rebuild the archive and recompute everything")
+    p.add_argument("--quiet", action="store_true", help="no progress on the terminal (the log file is still written)")
 
     p = sub.add_parser("demo-archive", help="write a synthetic archive of invented models")
     p.add_argument("dir")
-    p.add_argument("--models", type=int, default=8)
-    p.add_argument("--seed", type=int, default=0)
+    p.add_argument("--models", type=_positive, default=8)
+    p.add_argument("--seed", type=_non_negative, default=0)
     p.add_argument("--grid", type=_grid, default=None, help="NLATxNLON, e.g. 180x360 for benchmarks")
+    p.add_argument("--years", default="", metavar="ROLE=N[,ROLE=N]",
+                   help="run lengths in years by role (control, abrupt, onepct, historical, scenario), "
+                        "e.g. control=60,abrupt=40 for a quick archive")
+    p.add_argument("--quiet", action="store_true")
 
     p = sub.add_parser("extract", help="archive → sensitivity table, series, report, figures")
     p.add_argument("archive")
     p.add_argument("--out", required=True)
     p.add_argument("--config", help="TOML config; flags given here override it")
-    p.add_argument("--workers", type=int, help="dask workers (default: the config's, else the machine's cores)")
+    p.add_argument("--workers", type=_positive, help="dask workers (default: the config's, else the machine's cores)")
     p.add_argument("--force", action="store_true", help="recompute runs whose cached results are up to date")
-    p.add_argument("--quiet", action="store_true")
+    p.add_argument("--quiet", action="store_true", help="no progress on the terminal (the log file is still written)")
 
     p = sub.add_parser("emulate", help="sensitivity table + series → emulator → pathways")
     p.add_argument("--from", dest="source", required=True, help="an extraction's output folder")
     p.add_argument("--out", required=True)
-    p.add_argument("--config")
+    p.add_argument("--config", help="TOML config; flags given here override it")
     p.add_argument("--scenario", help="experiment id of the target scenario")
     p.add_argument("--at", action="append", default=[], metavar="NAME=VALUE[,NAME=VALUE]",
                    help="predict at these inputs, e.g. ecs_eff=3.7 (repeatable: one case each)")
     p.add_argument("--distribution", action="append", default=[], metavar="NAME=MEDIAN:LOW-HIGH|FILE.csv",
                    help="lognormal input through a median and a likely (17–83 %%) range, e.g. ecs_eff=3.0:2.5-4.0, "
                         "or a CSV file of input samples (repeatable)")
-    p.add_argument("--quiet", action="store_true")
+    p.add_argument("--quiet", action="store_true", help="no progress on the terminal (the log file is still written)")
 
-    p = sub.add_parser("run", help="a whole batch as a TOML config says")
+    p = sub.add_parser("run", help="a whole batch as a TOML config says: extraction, then emulation")
     p.add_argument("config")
     p.add_argument("--out", help="override the config's output folder")
-    p.add_argument("--workers", type=int)
-    p.add_argument("--force", action="store_true")
-    p.add_argument("--quiet", action="store_true")
+    p.add_argument("--workers", type=_positive, help="override the config's [compute] workers")
+    p.add_argument("--force", action="store_true", help="recompute runs whose cached results are up to date")
+    p.add_argument("--quiet", action="store_true", help="no progress on the terminal (the log file is still written)")
     return parser
 
 
@@ -82,42 +240,36 @@ def _version() -> str:
     return __version__
 
 
-def _say(quiet: bool):
-    def say(message: str) -> None:
-        if not quiet:
-            print(message, flush=True)
-
-    return say
+# ------------------------------------------------------------------------------------------ stages
 
 
-def cmd_demo_archive(args) -> int:
-    import demo_ensemble
-
-    kwargs = {"n_models": args.models, "seed": args.seed}
-    if args.grid:
-        kwargs["grid"] = args.grid
-    t0 = time.perf_counter()
-    root = demo_ensemble.generate(Path(args.dir), progress=True, **kwargs)
-    print(f"demo archive written to {Path(root) / 'archive'} in {time.perf_counter() - t0:.1f} s "
-          f"(truth in {Path(root) / 'truth.csv'})")
-    return EXIT_OK
-
-
-def _run_extract(archive, out, settings, compute, force, quiet, say):
+def _run_extract(archive, out, config, console: Console):
+    """Extraction under the configured compute back-end; per-run table and failures reported."""
     import extractor
 
     from .compute import open_compute
 
-    with open_compute(compute):
-        result = extractor.extract(archive, out, settings, force=force, progress=not quiet, log=say)
-    say(f"extraction: {len(result.rows)} rows ({len(result.cached)} reused), {len(result.failures)} failed, "
-        f"{result.seconds:.1f} s → {Path(out) / 'sensitivity.csv'}")
-    for f in result.failures:
-        say(f"  FAILED {f.model} {f.member} {f.what}: {f.message}")
+    quiet = config.output.quiet
+    bar = not quiet and sys.stdout.isatty()  # a redrawn bar only where it can be redrawn
+    coarse = _CoarseProgress(console, terminal=not quiet and not bar)
+    with open_compute(config.compute), coarse.callback:
+        result = extractor.extract(archive, out, config.extraction, force=config.output.force, progress=bar,
+                                   figures=config.output.figures, log=console)
+    console(f"extraction: {len(result.rows)} rows ({len(result.cached)} reused from {Path(out) / 'series'}), "
+            f"{len(result.failures)} failed, {result.seconds:.1f} s → {Path(out) / 'sensitivity.csv'}")
+    _print_table(result.rows, console)
+    for failure in result.failures:
+        who = " ".join(part for part in (failure.model, failure.member, failure.what) if part)
+        console.error(f"FAILED {who}: {failure.message}")
+    if result.failures:
+        console.error(f"{len(result.failures)} run(s) failed; the others are complete — details in "
+                      f"{Path(out) / 'report.md'}")
     return result
 
 
 def _print_table(rows, say):
+    if not rows:
+        return
     say(f"{'model':<16}{'member':<11}{'ERF4x':>7}{'λ':>7}{'ECS':>6}{'5–95 %':>13}{'TCR':>6}  flags")
     for r in rows:
         f = lambda k, d=2: "" if r.get(k) is None else f"{r[k]:.{d}f}"  # noqa: E731
@@ -126,101 +278,168 @@ def _print_table(rows, say):
             f"{interval:>13}{f('tcr'):>6}  {r.get('flags') or ''}")
 
 
-def _run_emulate(source, out, emulator_settings, prediction, say):
+def _run_emulate(source, out, config, console: Console):
     from emulator import emulate, format_summary
 
-    result = emulate(source, out, emulator_settings, prediction, progress=say)
-    say(format_summary(result.summary))
+    prediction = config.prediction
+    if not config.output.figures:
+        prediction = dataclasses.replace(prediction, figures=False)
+    result = emulate(source, out, config.emulator, prediction, progress=console)
+    console(format_summary(result.summary))
     return result
 
 
-def cmd_demo(args) -> int:
+def _header(args) -> str:
+    return f"sensemble {_version()} (pid {os.getpid()}): sensemble {' '.join(map(shlex.quote, args.argv))}"
+
+
+def _write_effective_config(config, out: Path, console: Console) -> None:
+    from .config import save_config
+
+    path = save_config(config, out / CONFIG_NAME)
+    console.info(f"effective configuration written to {path}", terminal=False)
+
+
+# ------------------------------------------------------------------------------------------ commands
+
+
+def cmd_demo_archive(args, console: Console) -> int:
+    import demo_ensemble
+    from demo_ensemble.generate import _parse_years
+
+    kwargs = {"n_models": args.models, "seed": args.seed}
+    if args.grid:
+        kwargs["grid"] = args.grid
+    try:
+        if args.years:
+            kwargs["years"] = _parse_years(args.years)
+        t0 = time.perf_counter()
+        root = demo_ensemble.generate(Path(args.dir), progress=not args.quiet, **kwargs)
+    except (ValueError, FileExistsError) as err:  # bad run lengths, or a folder that is not a demo archive
+        raise UsageError(str(err)) from None
+    console(f"demo archive written to {Path(root) / 'archive'} in {time.perf_counter() - t0:.1f} s "
+            f"(truth in {Path(root) / 'truth.csv'})")
+    return EXIT_OK
+
+
+def cmd_demo(args, console: Console) -> int:
     import demo_ensemble
 
     from .config import load_config, merge_overrides, shipped_config
 
-    say = _say(args.quiet)
     out = Path(args.out)
     config = load_config(shipped_config("demo"), check_paths=False)
-    config = merge_overrides(config, archive=str(out / "archive"), out=str(out), check_paths=False)
+    config = merge_overrides(config, archive=str(out / "archive"), out=str(out), workers=args.workers,
+                             force=args.force or None, quiet=args.quiet or None, check_paths=False)
+    console.open_log(out, _header(args))
     kwargs = {"n_models": args.models, "seed": args.seed}
     if args.grid:
         kwargs["grid"] = args.grid
     archive = out / "archive"
     t0 = time.perf_counter()
     if args.force or not (out / "truth.csv").exists():
-        say(f"1/3 writing the demo archive of {args.models} invented models to {archive}")
+        console(f"1/3 writing the demo archive of {args.models} invented models to {archive}")
         demo_ensemble.generate(out, progress=not args.quiet, **kwargs)
     else:
-        say(f"1/3 reusing the demo archive in {archive} (--force to rebuild)")
-    say("2/3 extracting sensitivities")
-    result = _run_extract(archive, out / "extract", config.extraction, config.compute, args.force, args.quiet, say)
-    _print_table(result.rows, say)
-    say("3/3 emulating warming pathways")
-    _run_emulate(out / "extract", out / "emulate", config.emulator, config.prediction, say)
-    say(f"done in {time.perf_counter() - t0:.0f} s; outputs in {out}/ (report: {out / 'extract' / 'report.md'})")
+        console(f"1/3 reusing the demo archive in {archive} (--force to rebuild)")
+    console("2/3 extracting sensitivities")
+    result = _run_extract(archive, out / "extract", config, console)
+    _write_effective_config(config, out, console)
+    if not result.rows:
+        console.error("no model could be extracted, so nothing to emulate")
+        return EXIT_RUNS_FAILED
+    console("3/3 emulating warming pathways")
+    _run_emulate(out / "extract", out / "emulate", config, console)
+    console(f"done in {time.perf_counter() - t0:.0f} s; outputs in {out}/ (report: {out / 'extract' / 'report.md'}, "
+            f"log: {console.log_path})")
     return EXIT_RUNS_FAILED if result.failures else EXIT_OK
 
 
-def cmd_extract(args) -> int:
+def cmd_extract(args, console: Console) -> int:
     from .config import load_config, merge_overrides
 
     if not Path(args.archive).is_dir():
-        raise UsageError(f"archive {args.archive}: no such folder — give the folder that holds the model directories")
+        what = "is not a folder" if Path(args.archive).exists() else "no such folder"
+        raise UsageError(f"archive {args.archive}: {what} — give the folder that holds the model directories")
     config = load_config(args.config, check_paths=False) if args.config else _default_config()
     config = merge_overrides(config, archive=args.archive, out=args.out, workers=args.workers,
                              force=args.force or None, quiet=args.quiet or None)
-    say = _say(config.output.quiet)
-    result = _run_extract(args.archive, args.out, config.extraction, config.compute, config.output.force,
-                          config.output.quiet, say)
-    _write_effective_config(config, Path(args.out))
+    console.quiet = config.output.quiet
+    out = Path(config.output.dir)
+    console.open_log(out, _header(args))
+    result = _run_extract(config.archive.root, out, config, console)
+    _write_effective_config(config, out, console)
     return EXIT_RUNS_FAILED if result.failures else EXIT_OK
 
 
-def _cases(args) -> tuple[dict, ...]:
-    """One case per --at (NAME=VALUE[,NAME=VALUE…]) and per --distribution."""
+def _cases(args) -> list[dict]:
+    """One config-style case per --at (NAME=VALUE[,NAME=VALUE…]) and per --distribution."""
     from emulator import parse_distribution, parse_point
 
     cases = []
     for text in args.at:
         case = parse_point(text)
+        if not case:
+            raise UsageError(f"--at {text!r}: give NAME=VALUE, e.g. ecs_eff=3.7")
         cases.append({"name": ",".join(f"{k}={v:g}" for k, v in case.items()), **case})
-    cases += [parse_distribution(text) for text in args.distribution]
-    return tuple(cases)
+    for text in args.distribution:
+        spec = parse_distribution(text)
+        if "samples_file" in spec:
+            path = Path(spec["samples_file"])
+            if not path.is_file():
+                raise UsageError(f"--distribution {text}: no such file — give a CSV file with one column per input")
+            cases.append({"name": f"samples:{path.stem}", "samples_file": str(path.resolve())})
+        else:
+            # the config's form of a distribution case: <input> = {distribution, median, likely}
+            cases.append({"name": spec["name"], spec["input"]: {"distribution": spec["distribution"],
+                                                                 "median": spec["median"], "likely": spec["likely"]}})
+    return cases
 
 
-def cmd_emulate(args) -> int:
-    from .config import load_config
+def cmd_emulate(args, console: Console) -> int:
+    from .config import load_config, merge_overrides
 
+    source = Path(args.source)
+    if not (source / "sensitivity.csv").is_file():
+        what = "no such folder" if not source.exists() else "no sensitivity.csv there"
+        raise UsageError(f"--from {args.source}: {what} — give the output folder of `sensemble extract`")
     config = load_config(args.config, check_paths=False) if args.config else _default_config()
-    if not (Path(args.source) / "sensitivity.csv").exists():
-        raise UsageError(f"--from {args.source}: no sensitivity.csv there — give the output folder of `sensemble extract`")
-    emulator_settings = config.emulator
-    if args.scenario:
-        emulator_settings = dataclasses.replace(emulator_settings, scenario=args.scenario)
-    prediction = config.prediction
+    overrides = {"out": args.out, "scenario": args.scenario, "quiet": args.quiet or None}
     cases = _cases(args)
     if cases:
-        prediction = dataclasses.replace(prediction, cases=cases)
-    _run_emulate(args.source, args.out, emulator_settings, prediction, _say(args.quiet))
-    _write_effective_config(config, Path(args.out))
+        overrides["cases"] = cases
+    config = merge_overrides(config, check_paths=False, **overrides)
+    console.quiet = config.output.quiet
+    out = Path(config.output.dir)
+    console.open_log(out, _header(args))
+    _run_emulate(source, out, config, console)
+    _write_effective_config(config, out, console)
     return EXIT_OK
 
 
-def cmd_run(args) -> int:
+def cmd_run(args, console: Console) -> int:
     from .config import load_config, merge_overrides
 
     config = load_config(args.config)
     config = merge_overrides(config, out=args.out, workers=args.workers, force=args.force or None,
                              quiet=args.quiet or None)
+    if config.archive.root is None:
+        raise UsageError(f"{args.config}: [archive] root is not set — give the archive folder there")
+    if config.output.dir is None:
+        raise UsageError(f"{args.config}: [output] dir is not set — give it there or with --out")
+    console.quiet = config.output.quiet
     out = Path(config.output.dir)
-    quiet = config.output.quiet
-    say = _say(quiet)
-    result = _run_extract(config.archive.root, out / "extract", config.extraction, config.compute,
-                          config.output.force, quiet, say)
-    _write_effective_config(config, out)
-    if result.rows:
-        _run_emulate(out / "extract", out / "emulate", config.emulator, config.prediction, say)
+    console.open_log(out, _header(args))
+    t0 = time.perf_counter()
+    console(f"1/2 extracting sensitivities from {config.archive.root}")
+    result = _run_extract(config.archive.root, out / "extract", config, console)
+    _write_effective_config(config, out, console)
+    if not result.rows:
+        console.error("no model could be extracted, so nothing to emulate")
+        return EXIT_RUNS_FAILED
+    console("2/2 emulating warming pathways")
+    _run_emulate(out / "extract", out / "emulate", config, console)
+    console(f"done in {time.perf_counter() - t0:.0f} s; outputs in {out}/ (log: {console.log_path})")
     return EXIT_RUNS_FAILED if result.failures else EXIT_OK
 
 
@@ -230,34 +449,45 @@ def _default_config():
     return config_from_dict({}, source="<defaults>", check_paths=False)
 
 
-def _write_effective_config(config, out: Path) -> None:
-    from .config import save_config
-
-    save_config(config, out / "effective-config.toml")
-
-
 COMMANDS = {"demo": cmd_demo, "demo-archive": cmd_demo_archive, "extract": cmd_extract, "emulate": cmd_emulate,
             "run": cmd_run}
 
 
+def _usage_errors() -> tuple[type[BaseException], ...]:
+    """Errors that mean "change the command or the config": exit status 2, one line."""
+    from emulator import EmulatorInputError
+    from extractor.errors import OutputInUseError
+
+    from .compute import ComputeError
+    from .config import ConfigError
+
+    return UsageError, ConfigError, EmulatorInputError, ComputeError, OutputInUseError
+
+
 def main(argv: list[str] | None = None) -> int:
-    parser = build_parser()
-    args = parser.parse_args(argv)
+    argv = list(sys.argv[1:] if argv is None else argv)
     try:
-        return COMMANDS[args.command](args)
-    except UsageError as err:
-        print(f"sensemble {args.command}: {err}", file=sys.stderr)
-        return EXIT_USAGE
-    except Exception as err:  # noqa: BLE001
-        from emulator import EmulatorInputError
-
-        from .compute import ComputeError
-        from .config import ConfigError
-
-        if isinstance(err, (ConfigError, EmulatorInputError, ComputeError)):
-            print(f"sensemble {args.command}: {err}", file=sys.stderr)
+        args = build_parser().parse_args(argv)
+    except SystemExit as done:  # --help, --version (0) or a usage mistake (2, already said on stderr)
+        return done.code if isinstance(done.code, int) else EXIT_USAGE
+    args.argv = argv
+    console = Console(quiet=getattr(args, "quiet", False))
+    try:
+        return COMMANDS[args.command](args, console)
+    except KeyboardInterrupt:
+        console.error(f"sensemble {args.command}: interrupted; rerun the same command to resume")
+        return 130
+    except Exception as err:  # noqa: BLE001 — every error leaves as one line; the traceback goes to the log
+        text = " ".join(str(err).split()) or type(err).__name__
+        if isinstance(err, _usage_errors()):
+            console.error(f"sensemble {args.command}: {text}")
             return EXIT_USAGE
-        raise
+        where = f"the traceback is in {console.log_path}" if console.log_path else "rerun with an output folder to log it"
+        console.exception(f"sensemble {args.command}: unexpected error ({type(err).__name__}: {text}); {where} — "
+                          "please report it")
+        return EXIT_RUNS_FAILED
+    finally:
+        console.close()
 
 
 if __name__ == "__main__":

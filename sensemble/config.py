@@ -576,6 +576,10 @@ def _check_cases(config: BatchConfig, source: str, inputs: tuple[str, ...]) -> N
         for key, value in case.items():
             if key == "name":
                 continue
+            if key == "samples_file":  # input samples from a CSV file, one column per input
+                if not isinstance(value, str) or not value:
+                    raise ConfigError(f"{source}: case '{name}': samples_file must be a path (string)")
+                continue
             if inputs and key not in inputs:
                 close = difflib.get_close_matches(key, inputs, n=1)
                 hint = f"did you mean '{close[0]}'?" if close else f"emulator inputs are {', '.join(inputs)}"

@@ -1,11 +1,26 @@
 """`PathwayEmulator`: warming pathways as a function of sensitivity inputs, with calibrated uncertainty.
 
+What is predicted: the annual warming of *one realisation* of a model with the given inputs. Its mean is
+the forced response; its spread = uncertainty of the forced response (the emulator's, including the
+model-to-model "structural" scatter the inputs do not explain) + internal variability (when given).
+
 Mean: the two-layer response (emulator.ebm) at each input, with ensemble-typical heat capacities and
-λ = F2x / ecs_eff. Residuals from that mean are reduced to principal components (SVD) keeping at least
-`variance_kept` of their variance; one scikit-learn `GaussianProcessRegressor` per component (Matérn 5/2
-with one length scale per standardised input, plus white noise; `normalize_y`). The predictive variance
-of a year is Σ_j σ_j² v_jt² (GP variances through the components) + the variance of the discarded
-components + optionally internal variability (AR(1) fitted to the control runs).
+λ = F2x / ecs_eff. The training pathways are single noisy realisations, so their residuals from that mean
+are first smoothed along years (emulator.smoothing: the forced part; the internal variability is not
+interpolated into the mean). The smoothed residuals are reduced to principal components (SVD) keeping at
+least `variance_kept` of their variance; one scikit-learn `GaussianProcessRegressor` per component
+(Matérn 5/2 with one length scale per standardised input, plus white noise; `normalize_y`). The white
+noise is the part of the model-to-model scatter the inputs cannot explain (e.g. heat uptake that differs
+between models of equal ecs_eff): it stays in the predictive variance.
+
+Predictive variance of a year = Σ_j σ_j² v_jt² (GP variances through the components) + the variance of the
+discarded components + internal variability (AR(1) fitted to the control runs). With
+`small_sample_correction`, each σ_j² is the Bayesian GP emulator's variance (Oakley & O'Hagan 2002,
+Biometrika; Conti & O'Hagan 2010, J. Stat. Plan. Inference; from memory) at the fitted correlation
+lengths and noise ratio: the amplitude re-estimated from the generalised least-squares residuals over
+n − 1 degrees of freedom, the uncertainty of the unknown constant mean added, and the Student-t (n − 1
+degrees of freedom) widened to a Gaussian with the same 90 % interval. With ~10 training models the
+plug-in maximum-likelihood variance is otherwise too small by about a third.
 """
 from __future__ import annotations
 
@@ -15,6 +30,8 @@ from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass
 
 import numpy as np
+from scipy.linalg import cho_solve
+from scipy.stats import norm, t as student_t
 from sklearn.base import BaseEstimator
 from sklearn.exceptions import ConvergenceWarning
 from sklearn.gaussian_process import GaussianProcessRegressor
@@ -23,8 +40,10 @@ from threadpoolctl import threadpool_limits  # installed with scikit-learn
 
 from .ebm import TwoLayerParameters, integrate
 from .errors import EmulatorInputError
+from .smoothing import SMOOTHERS, forced_part
 
-__all__ = ["PathwayEmulator", "PhysicsMean", "make_kernel", "internal_variability_from_control", "MEAN_PARAMETERS"]
+__all__ = ["PathwayEmulator", "PhysicsMean", "make_kernel", "internal_variability_from_control", "MEAN_PARAMETERS",
+           "small_sample_factor"]
 
 #: Keys of `mean_params`: the ensemble-typical two-layer parameters of the physics mean.
 MEAN_PARAMETERS = ("f2x", "heat_capacity", "deep_heat_capacity", "exchange", "efficacy")
@@ -40,6 +59,12 @@ def make_kernel(kind: str, n_inputs: int):
     else:
         raise EmulatorInputError(f"unknown kernel {kind!r}", hint=f"choose one of {', '.join(KERNELS)}")
     return ConstantKernel(1.0, (1e-3, 1e3)) * shape + WhiteKernel(1e-2, (1e-8, 1e1))
+
+
+def small_sample_factor(n: int) -> float:
+    """Variance factor widening a Student-t with n − 1 degrees of freedom to the Gaussian with the same
+    central 90 % interval: (t_0.95,n−1 / z_0.95)² (scipy.stats quantiles)."""
+    return float((student_t.ppf(0.95, int(n) - 1) / norm.ppf(0.95)) ** 2)
 
 
 def internal_variability_from_control(series) -> tuple[float, float]:
@@ -117,7 +142,13 @@ class PathwayEmulator(BaseEstimator):
     max_components : upper limit on the number of components
     kernel : "matern52" or "rbf"
     internal_variability : None, or (sd in K, lag-1 autocorrelation) of annual internal variability added
-        to predictions as AR(1) noise (see `internal_variability_from_control`)
+        to predictions as AR(1) noise (see `internal_variability_from_control`); None predicts the forced
+        response only
+    smoothing : how the training residuals are smoothed along years before the SVD (emulator.smoothing):
+        "auto" (the forcing-response projection with the physics mean, else the Gaussian smoother),
+        "response", "gaussian", or "none" (the targets are then taken as noise-free)
+    small_sample_correction : Bayesian GP variance with the amplitude and the constant mean estimated from
+        the n training runs (see the module docstring); False: scikit-learn's plug-in variance
     n_restarts_optimizer : extra random starts of each GP's hyperparameter search
     random_state : seed of the GP optimiser restarts
 
@@ -128,9 +159,11 @@ class PathwayEmulator(BaseEstimator):
     components_ : (n_components, n_years) principal directions of the residuals (orthonormal rows)
     scores_ : (n_runs, n_components) training coordinates on them (the GP targets)
     explained_variance_ratio_ : (n_components,) share of the residual variance of each kept component
-    truncated_components_, truncated_scale_ : discarded directions and the sd of their scores
+    truncated_components_, truncated_scale_ : discarded directions and the predictive sd of their scores
+        (sample sd, with the small-sample factor (1 + 1/n)·(t/z)² when that correction is on)
     truncation_variance_ : (n_years,) variance left out by the truncation
     gps_ : list of fitted GaussianProcessRegressor, one per component
+    variance_scale_ : (n_components,) factor on each GP's variance (1 without the small-sample correction)
     x_mean_, x_scale_ : input standardisation
     X_train_, Y_train_ : training data
 
@@ -145,13 +178,16 @@ class PathwayEmulator(BaseEstimator):
     """
 
     def __init__(self, inputs=("ecs_eff",), physics_mean=True, variance_kept=0.99, max_components=10,
-                 kernel="matern52", internal_variability=None, n_restarts_optimizer=1, random_state=0):
+                 kernel="matern52", internal_variability=None, smoothing="auto", small_sample_correction=True,
+                 n_restarts_optimizer=1, random_state=0):
         self.inputs = inputs
         self.physics_mean = physics_mean
         self.variance_kept = variance_kept
         self.max_components = max_components
         self.kernel = kernel
         self.internal_variability = internal_variability
+        self.smoothing = smoothing
+        self.small_sample_correction = small_sample_correction
         self.n_restarts_optimizer = n_restarts_optimizer
         self.random_state = random_state
 
@@ -179,6 +215,11 @@ class PathwayEmulator(BaseEstimator):
         iv = self.internal_variability
         if iv is not None and (len(iv) != 2 or iv[0] < 0 or not 0 <= iv[1] < 1):
             raise EmulatorInputError(f"internal_variability must be (sd ≥ 0, 0 ≤ lag-1 < 1), got {iv}")
+        if self.smoothing not in SMOOTHERS:
+            raise EmulatorInputError(f"unknown smoothing {self.smoothing!r}", hint=f"choose one of {', '.join(SMOOTHERS)}")
+        if self.smoothing == "response" and not self.physics_mean:
+            raise EmulatorInputError("smoothing 'response' needs the forcing of the physics mean",
+                                     hint="use 'gaussian' or 'none' with physics_mean=False")
         if self.physics_mean:
             if "ecs_eff" not in inputs:
                 raise EmulatorInputError("the physics mean needs 'ecs_eff' among the inputs",
@@ -213,7 +254,8 @@ class PathwayEmulator(BaseEstimator):
         self.x_mean_ = X.mean(axis=0)
         scale = X.std(axis=0)
         self.x_scale_ = np.where(scale > 0, scale, 1.0)
-        residuals = Y - self.mean_model_(X)
+        # the forced part of each single realisation; its internal variability re-enters as the AR(1) term
+        residuals = forced_part(Y - self.mean_model_(X), self.smoothing, self.mean_model_.forcing)
         self.residual_mean_ = residuals.mean(axis=0)
         centred = residuals - self.residual_mean_
         u, s, vt = np.linalg.svd(centred, full_matrices=False)
@@ -233,6 +275,9 @@ class PathwayEmulator(BaseEstimator):
         self.explained_variance_ratio_ = ratio[:k].copy()
         self.truncated_components_ = vt[k:rank].copy()
         self.truncated_scale_ = s[k:rank] / np.sqrt(max(n - 1, 1))
+        if self.small_sample_correction:
+            # a new run's score from a sample of n with estimated mean and variance (Student-t, n − 1 dof)
+            self.truncated_scale_ = self.truncated_scale_ * np.sqrt((1.0 + 1.0 / n) * small_sample_factor(n))
         self.truncation_variance_ = (self.truncated_scale_ ** 2) @ (self.truncated_components_ ** 2) \
             if rank > k else np.zeros(n_years)
         self.internal_variability_ = None if self.internal_variability is None else \
@@ -245,7 +290,30 @@ class PathwayEmulator(BaseEstimator):
         # hyperparameters at a bound are worth knowing, not worth a console full of warnings
         self.fit_warnings_ = sorted({str(w.message).split(". Decreasing")[0].split(". Increasing")[0] for w in caught
                                      if issubclass(w.category, ConvergenceWarning)})
+        self._set_variance_terms()
         return self
+
+    def _set_variance_terms(self):
+        """Per component: `variance_scale_` and the GLS terms of the unknown constant mean (`_mean_weights`,
+        `_mean_precision`). Depends only on the fitted GPs, so loading a saved emulator rebuilds it exactly."""
+        k = self.n_components_
+        self.variance_scale_ = np.ones(k)
+        self._mean_weights = [None] * k
+        self._mean_precision = np.full(k, np.inf)
+        if not self.small_sample_correction:
+            return
+        factor = small_sample_factor(len(self.X_train_))
+        for j, gp in enumerate(self.gps_):
+            y = np.asarray(gp.y_train_, float).reshape(-1)  # normalised scores (normalize_y)
+            ones = np.ones_like(y)
+            weights = cho_solve((gp.L_, True), ones)  # K⁻¹1
+            precision = float(ones @ weights)  # 1ᵀK⁻¹1
+            beta = float(weights @ y) / precision  # GLS constant mean
+            r = y - beta
+            amplitude = float(r @ cho_solve((gp.L_, True), r)) / (len(y) - 1)  # σ̂² relative to the fitted K
+            self.variance_scale_[j] = amplitude * factor
+            self._mean_weights[j] = weights
+            self._mean_precision[j] = precision
 
     def _fit_gp(self, Xs, z, j, kernel=None):
         gp = GaussianProcessRegressor(
@@ -297,7 +365,13 @@ class PathwayEmulator(BaseEstimator):
         sd = np.empty_like(mu)
 
         def one(j):
-            mu[:, j], sd[:, j] = self.gps_[j].predict(Xs, return_std=True)
+            gp = self.gps_[j]
+            mu[:, j], sd[:, j] = gp.predict(Xs, return_std=True)
+            if self._mean_weights[j] is not None:
+                # Bayesian emulator variance: σ̂² [c** − k*ᵀK⁻¹k* + (1 − 1ᵀK⁻¹k*)² / 1ᵀK⁻¹1], widened to t's 90 %
+                unexplained = 1.0 - gp.kernel_(Xs, gp.X_train_) @ self._mean_weights[j]
+                var = sd[:, j] ** 2 + (gp._y_train_std ** 2) * unexplained ** 2 / self._mean_precision[j]
+                sd[:, j] = np.sqrt(self.variance_scale_[j] * var)
 
         if Xs.shape[0] >= 5000 and self.n_components_ > 1:
             # large batches: the GPs' numpy work releases the GIL, so threads use both cores

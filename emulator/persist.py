@@ -22,7 +22,7 @@ from .gp import PathwayEmulator, PhysicsMean, make_kernel
 __all__ = ["save_emulator", "load_emulator", "FORMAT", "FORMAT_VERSION"]
 
 FORMAT = "sensemble-pathway-emulator"
-FORMAT_VERSION = 1
+FORMAT_VERSION = 2  # 2: scores from smoothed residuals, small-sample variance (parameters smoothing, small_sample_correction)
 _ARRAYS = {  # attribute → dims
     "X_train_": ("run", "input"), "Y_train_": ("run", "year"), "x_mean_": ("input",), "x_scale_": ("input",),
     "residual_mean_": ("year",), "components_": ("component", "year"), "scores_": ("run", "component"),
@@ -124,4 +124,5 @@ def load_emulator(path) -> tuple[PathwayEmulator, dict]:
     theta = ds["kernel_theta"].values
     em.gps_ = [em._fit_gp(Xs, em.scores_[:, j], j, kernel=make_kernel(em.kernel, Xs.shape[1]).clone_with_theta(theta[j]))
                for j in range(em.n_components_)]
+    em._set_variance_terms()
     return em, json.loads(ds.attrs["metadata"])

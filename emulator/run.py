@@ -127,6 +127,7 @@ def build_emulator(ts: TrainingSet, settings: EmulatorSettings, calibration: pd.
     emulator = PathwayEmulator(
         inputs=tuple(settings.inputs), physics_mean=settings.physics_mean, variance_kept=settings.variance_kept,
         max_components=settings.max_components, kernel=settings.kernel, internal_variability=iv,
+        smoothing=settings.smoothing, small_sample_correction=settings.small_sample_correction,
         n_restarts_optimizer=settings.n_restarts_optimizer, random_state=settings.random_state,
     ).fit(ts.X, ts.Y, forcing=forcing, mean_params=mean_params)
     return emulator, details

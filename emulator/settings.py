@@ -16,7 +16,11 @@ class EmulatorSettings:
     variance_kept: float = 0.99  # fraction of residual variance the principal components keep
     max_components: int = 10
     kernel: str = "matern52"  # "matern52" | "rbf"
-    internal_variability: bool = True
+    internal_variability: bool = True  # predict one realisation: add the control runs' AR(1) variability
+    # training residuals smoothed along years before the SVD: "auto" (forcing-response projection with the
+    # physics mean, else Gaussian), "response", "gaussian" or "none" (emulator/smoothing.py)
+    smoothing: str = "auto"
+    small_sample_correction: bool = True  # Bayesian GP variance for few training models (emulator/gp.py)
     physics_mean: bool = True
     random_state: int = 0
     efficacy: bool = False  # calibrate the deep-ocean heat-uptake efficacy (Geoffroy et al. 2013b) for the mean

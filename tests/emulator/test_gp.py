@@ -25,12 +25,13 @@ def step_ensemble(ecs, years, f2x=3.71, noise=0.0, seed=0):
 def test_single_output_equals_sklearn_reference():
     # Reference library: sklearn GaussianProcessRegressor fitted directly to the same standardised inputs
     # with the same kernel (Matérn 5/2 ARD × amplitude + white noise) must give the same mean and sd to 1e-8
-    # when the physics mean is off and one component is kept.
+    # when the physics mean is off, one component is kept and the small-sample correction is off (the
+    # plug-in variance; the correction is checked against its own sources below).
     rng = np.random.default_rng(3)
     X = rng.uniform(1.5, 5.5, (15, 2))
     y = np.sin(X[:, 0]) + 0.3 * X[:, 1] + rng.normal(0, 0.05, 15)
     em = PathwayEmulator(inputs=("ecs_eff", "tcr"), physics_mean=False, max_components=1,
-                         n_restarts_optimizer=2, random_state=5).fit(X, y[:, None])
+                         small_sample_correction=False, n_restarts_optimizer=2, random_state=5).fit(X, y[:, None])
     kernel = ConstantKernel(1.0, (1e-3, 1e3)) * Matern(np.ones(2), (0.3, 1e2), nu=2.5) + WhiteKernel(1e-2, (1e-8, 1e1))
     mu, sd = X.mean(0), X.std(0)
     ref = GaussianProcessRegressor(kernel, normalize_y=True, n_restarts_optimizer=2, random_state=5)
@@ -40,6 +41,53 @@ def test_single_output_equals_sklearn_reference():
     m, s = em.predict(Xq, return_std=True)
     np.testing.assert_allclose(m[:, 0], m_ref, atol=1e-8, rtol=0)
     np.testing.assert_allclose(s[:, 0], s_ref, atol=1e-8, rtol=0)
+
+
+def test_small_sample_correction_matches_bayesian_emulator_formula():
+    # Bayesian GP emulator with a constant mean (flat prior) and an unknown variance (Jeffreys prior)
+    # (Oakley & O'Hagan 2002, Biometrika; Conti & O'Hagan 2010; from memory), at sklearn's fitted kernel K:
+    # σ̂² = (y − β̂)ᵀK⁻¹(y − β̂)/(n − 1), var = σ̂²[k** − k*ᵀK⁻¹k* + (1 − 1ᵀK⁻¹k*)²/1ᵀK⁻¹1], Student-t with
+    # n − 1 dof widened to the Gaussian of the same 90 % interval (quantiles from scipy.stats). Written out
+    # here with plain numpy solves, independently of the emulator's Cholesky route.
+    from scipy.stats import norm, t as student_t
+    rng = np.random.default_rng(3)
+    X = rng.uniform(1.5, 5.5, (9, 1))
+    y = np.sin(X[:, 0]) + rng.normal(0, 0.2, 9)
+    em = PathwayEmulator(physics_mean=False, max_components=1, n_restarts_optimizer=0).fit(X, y[:, None])
+    plain = PathwayEmulator(physics_mean=False, max_components=1, n_restarts_optimizer=0,
+                            small_sample_correction=False).fit(X, y[:, None])
+    gp = em.gps_[0]
+    Xs = em._standardise(X)
+    K = gp.kernel_(Xs) + gp.alpha * np.eye(9)
+    z = gp.y_train_
+    one = np.ones(9)
+    beta = one @ np.linalg.solve(K, z) / (one @ np.linalg.solve(K, one))
+    sigma2 = (z - beta) @ np.linalg.solve(K, z - beta) / 8
+    Xq = np.array([[1.0], [3.0], [6.5]])
+    Xqs = em._standardise(Xq)
+    ks = gp.kernel_(Xqs, Xs)
+    inner = gp.kernel_.diag(Xqs) - np.einsum("ij,ji->i", ks, np.linalg.solve(K, ks.T))
+    inner += (1 - ks @ np.linalg.solve(K, one)) ** 2 / (one @ np.linalg.solve(K, one))
+    expected = gp._y_train_std * np.sqrt(sigma2 * inner) * student_t.ppf(0.95, 8) / norm.ppf(0.95)
+    mean, sd = em.predict(Xq, return_std=True)
+    # the emulator's component direction is ±1 for one year: sd is the component's sd
+    np.testing.assert_allclose(sd[:, 0], expected, rtol=1e-8)
+    np.testing.assert_allclose(mean, plain.predict(Xq), rtol=1e-12)  # the mean is the plug-in GP's
+    assert np.all(sd > plain.predict(Xq, return_std=True)[1])
+
+
+def test_small_sample_correction_pure_noise_is_prediction_interval():
+    # Limit of no signal: a new draw from a normal sample of n has the prediction interval
+    # ȳ ± t_0.95,n−1 s √(1 + 1/n) (textbook, e.g. Hahn & Meeker 1991, "Statistical Intervals", from memory).
+    from scipy.stats import norm, t as student_t
+    X = np.linspace(2.0, 5.0, 10)[:, None]
+    y = np.array([0.3, -0.5, 0.1, 0.4, -0.2, -0.3, 0.5, -0.1, 0.2, -0.4])  # no trend in X
+    em = PathwayEmulator(physics_mean=False, max_components=1, n_restarts_optimizer=0).fit(X, y[:, None])
+    amplitude = em.gps_[0].kernel_.k1.k1.constant_value
+    assert amplitude < 1e-2  # the fit found no signal (premise of the limit)
+    _, sd = em.predict([[3.3]], return_std=True)
+    expected = y.std(ddof=1) * np.sqrt(1 + 1 / 10) * student_t.ppf(0.95, 9) / norm.ppf(0.95)
+    assert sd[0, 0] == pytest.approx(expected, rel=0.02)
 
 
 def test_doubled_co2_at_ecs_3_approaches_3_kelvin():
@@ -122,7 +170,8 @@ def test_learned_attributes_and_errors():
 def test_rbf_kernel_and_physics_off_fit():
     ecs = np.linspace(2.0, 5.0, 8)
     Y = step_ensemble(ecs, 60, noise=0.05)
-    em = PathwayEmulator(physics_mean=False, kernel="rbf", max_components=2).fit(ecs[:, None], Y)
+    # no smoothing: without a forcing, the Gaussian smoother would blur the step's fast transient (smoothing.py)
+    em = PathwayEmulator(physics_mean=False, kernel="rbf", max_components=2, smoothing="none").fit(ecs[:, None], Y)
     assert em.components_.shape == (2, 60) and len(em.gps_) == 2
     np.testing.assert_allclose(em.components_ @ em.components_.T, np.eye(2), atol=1e-12)
     # interpolating between training runs stays close to the true two-layer response (common practice)

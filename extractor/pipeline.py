@@ -266,6 +266,17 @@ def write_series(path: Path, groups: dict[str, xr.Dataset], attrs: dict) -> Path
     return path
 
 
+def _noise(control_annual: xr.Dataset, name: str) -> float | None:
+    """Standard deviation of the control's detrended annual means: the internal variability of `name`."""
+    if name not in control_annual:
+        return None
+    values = np.asarray(control_annual[name].values, dtype=float)
+    years = np.arange(values.size, dtype=float)
+    residual = values - np.polyval(np.polyfit(years, values, 1), years)
+    sd = float(np.std(residual, ddof=2)) if values.size > 2 else 0.0
+    return sd if sd > 0 else None
+
+
 def _fit_row(unit: Unit, anomalies: xr.Dataset | None, tcr_value, control_annual, settings, flags) -> dict:
     row = {c: None for c in ALL_COLUMNS}
     row.update(model=unit.model, member=unit.member)
@@ -290,6 +301,11 @@ def _fit_row(unit: Unit, anomalies: xr.Dataset | None, tcr_value, control_annual
                    ecs_eff=fit.ecs_eff, ecs_eff_q05=q05, ecs_eff_q95=q95, feedback_early=seg.feedback_early,
                    feedback_late=seg.feedback_late, feedback_change=seg.feedback_change, ecs_late=seg.ecs_late,
                    curvature=quad.curvature, n_years=fit.n_years)
+        if settings.orthogonal_fit:
+            # errors in both variables (scipy.odr), noise scales from the control's internal variability
+            odr = odr_fit(dT, dN, years=settings.fit_years, forcing_ratio=settings.forcing_ratio,
+                          tas_noise=_noise(control_annual, "tas"), rtnt_noise=_noise(control_annual, "rtnt"))
+            row.update(erf_4x_odr=odr.erf, feedback_odr=odr.feedback, ecs_eff_odr=odr.ecs_eff)
         comps = component_feedbacks(anomalies, years=settings.fit_years)
         if comps is not None:
             row.update(feedback_lw_cs=comps.feedback_lw_cs, feedback_sw_cs=comps.feedback_sw_cs,
@@ -297,7 +313,7 @@ def _fit_row(unit: Unit, anomalies: xr.Dataset | None, tcr_value, control_annual
     else:
         flags.append("no_abrupt")
     row["tcr"] = tcr_value
-    if tcr_value is None:
+    if unit.onepct is None:
         flags.append("no_onepct")
     control_n = float(control_annual["rtnt"].mean()) if "rtnt" in control_annual else float("nan")
     flags.extend(quality_flags(fit, control_n, settings))
@@ -343,8 +359,9 @@ def _process_unit(unit: Unit, series: dict[str, xr.Dataset], settings, out_dir: 
         groups[unit.onepct.experiment_id] = _group(onepct_anom, "onepct")
         try:
             tcr_value = float(transient_response(onepct_anom["tas"], years=settings.tcr_years))
-        except FitWindowError as err:
-            raise _run_error(err, unit.onepct, onepct_anom, _window_hint(settings, ("tcr_years",))) from None
+        except FitWindowError:
+            # the Gregory results stand on their own: keep them, leave tcr empty and say why
+            flags.append("onepct_short")
 
     others = {r.experiment_id: annual[r.experiment_id] for r in unit.others}
     try:

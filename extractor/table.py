@@ -18,7 +18,7 @@ COLUMNS = (
     "ecs_eff_q95", "feedback_early", "feedback_late", "feedback_change", "ecs_late", "curvature", "tcr",
     "n_years", "flags",
 )
-EXTRA_COLUMNS = ("feedback_lw_cs", "feedback_sw_cs", "feedback_cre")
+EXTRA_COLUMNS = ("feedback_lw_cs", "feedback_sw_cs", "feedback_cre", "erf_4x_odr", "feedback_odr", "ecs_eff_odr")
 ALL_COLUMNS = COLUMNS + EXTRA_COLUMNS
 
 COLUMN_META = {
@@ -39,6 +39,9 @@ COLUMN_META = {
     "feedback_lw_cs": ("W m-2 K-1", "clear-sky longwave component of feedback"),
     "feedback_sw_cs": ("W m-2 K-1", "clear-sky shortwave component of feedback"),
     "feedback_cre": ("W m-2 K-1", "cloud radiative effect component of feedback"),
+    "erf_4x_odr": ("W m-2", "erf_4x from an orthogonal-distance (errors-in-variables) fit"),
+    "feedback_odr": ("W m-2 K-1", "feedback from an orthogonal-distance (errors-in-variables) fit"),
+    "ecs_eff_odr": ("K", "ecs_eff from an orthogonal-distance (errors-in-variables) fit"),
 }
 NUMERIC = tuple(c for c in ALL_COLUMNS if c not in ("model", "member", "flags"))
 

@@ -123,3 +123,15 @@ def test_rerun_reuses_cache_and_gives_identical_table(result, archive):
 def test_csv_header(result):
     with open(result.out_dir / "sensitivity.csv") as fh:
         assert next(csv.reader(fh))[:3] == ["model", "member", "erf_4x"]
+
+
+def test_orthogonal_fit_and_short_onepct_run(archive, tmp_path):
+    # On points exactly on a line the orthogonal-distance fit (scipy.odr) and OLS agree (common practice, no
+    # source); a 1 % run shorter than the TCR window leaves tcr empty with a flag, the Gregory results stand.
+    settings = dataclasses.replace(SETTINGS, orthogonal_fit=True, tcr_years=(1, 50))
+    result = extract(archive, tmp_path, settings, progress=False, figures=False)
+    row = {r["model"]: r for r in result.rows}["ALDER-1"]
+    assert row["ecs_eff_odr"] == pytest.approx(row["ecs_eff"], abs=1e-3)
+    assert row["feedback_odr"] == pytest.approx(LAMBDA, abs=1e-3)
+    assert row["tcr"] is None and "onepct_short" in row["flags"]
+    assert row["ecs_eff"] == pytest.approx(F4X / (2 * 1.75), abs=1e-4)

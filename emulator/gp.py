@@ -390,8 +390,22 @@ class PathwayEmulator(BaseEstimator):
     def internal_variance_(self) -> float:
         return 0.0 if self.internal_variability_ is None else self.internal_variability_[0] ** 2
 
+    @property
+    def prediction_target_(self) -> str:
+        """What `predict` and `sample_paths` describe, in words (written into the outputs' attributes)."""
+        self._check_fitted()
+        if self.internal_variability_ is None or self.internal_variability_[0] == 0:
+            return ("forced response: mean = forced warming; spread = emulator and structural (model-to-model) "
+                    "uncertainty only, no internal variability")
+        sd, phi = self.internal_variability_
+        return ("annual warming of a single realisation: mean = forced warming; spread = emulator and structural "
+                f"(model-to-model) uncertainty + internal variability (AR(1), sd {sd:.3f} K, lag-1 {phi:.2f})")
+
     def predict(self, X, return_std: bool = False):
-        """Mean pathway (n_cases, n_years) at inputs X; with `return_std` also the predictive sd per year."""
+        """Mean pathway (n_cases, n_years) at inputs X; with `return_std` also the predictive sd per year.
+
+        The mean is the forced response; the sd is that of a single realisation's annual warming when
+        internal variability is set, of the forced response otherwise (`prediction_target_`)."""
         mu, sd = self.component_predictions(X)
         mean = self._base(X, mu)
         if not return_std:

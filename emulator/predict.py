@@ -300,7 +300,8 @@ def predict_cases(emulator, cases, *, training_X, years, calendar_years=None, th
         },
         coords={"case": np.array(names, dtype=object), "year": ("year", years, {"long_name": "year after branch (1 = first)"}),
                 "quantile": ("quantile", quantiles, {"long_name": "probability level"})},
-        attrs={"inputs": ";".join(inputs), "n_samples": int(n_samples), "crossing_window": int(crossing_window)},
+        attrs={"inputs": ";".join(inputs), "n_samples": int(n_samples), "crossing_window": int(crossing_window),
+               "prediction_of": getattr(emulator, "prediction_target_", "")},
     )
     if calendar_years is not None:
         ds = ds.assign_coords(calendar_year=("year", np.asarray(calendar_years), {"long_name": "calendar year"}))

@@ -250,6 +250,7 @@ def emulate(extract_dir, out_dir, settings: EmulatorSettings = EmulatorSettings(
         "forcing": details.get("forcing_source", "none (physics mean off)"),
         "mean_parameters": details.get("mean_parameters"),
         "internal_variability": details.get("internal_variability"),
+        "prediction_of": emulator.prediction_target_,
         "validation": validation_summary,
         "notes": [v for k, v in details.items() if k.endswith("_note")] + (
             [f"{len(emulator.fit_warnings_)} GP hyperparameter(s) ended at a search bound (usually a component the "
@@ -272,6 +273,8 @@ def format_summary(summary: dict) -> str:
             lines.append(f"  {what.replace('_', ' ')[:-1]}: {item}")
     lines.append(f"emulator: {summary['n_components']} components ({100 * summary['variance_explained']:.1f} % of "
                  f"residual variance); forcing {summary['forcing']}")
+    if summary.get("prediction_of"):
+        lines.append(f"predicts {summary['prediction_of']}")
     v = summary.get("validation")
     if v:
         lines.append(

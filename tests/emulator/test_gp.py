@@ -124,6 +124,7 @@ def test_variance_adds_up_and_sampling_agrees():
     em = PathwayEmulator(physics_mean=True, variance_kept=0.6, internal_variability=iv).fit(
         ecs[:, None], Y, forcing=np.full(80, 3.71), mean_params=MEAN)
     assert em.n_components_ < 9 and em.truncation_variance_.sum() > 0
+    assert "single realisation" in em.prediction_target_
     mean, sd = em.predict([[3.2]], return_std=True)
     mu, s = em.component_predictions([[3.2]])
     expected = (s ** 2) @ em.components_ ** 2 + em.truncation_variance_ + iv[0] ** 2

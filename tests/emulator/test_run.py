@@ -49,6 +49,8 @@ def test_pathways_and_crossings_follow_the_contract(result):
     with xr.open_dataset(out / "pathways.nc") as ds:
         assert ds["warming_quantile"].dims == ("case", "quantile", "year")
         assert ds["mean"].attrs["units"] == "K" and ds.attrs["Conventions"].startswith("CF")
+        # the spread is that of one realisation (internal variability included), the mean the forced response
+        assert ds.attrs["prediction_of"].startswith("annual warming of a single realisation")
         np.testing.assert_allclose(ds["mean"].values.ravel(), pathways["mean"].to_numpy(), rtol=1e-5)
 
 

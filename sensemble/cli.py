@@ -260,7 +260,8 @@ def _run_extract(archive, out, config, console: Console):
     _print_table(result.rows, console)
     for failure in result.failures:
         who = " ".join(part for part in (failure.model, failure.member, failure.what) if part)
-        console.error(f"FAILED {who}: {failure.message}")
+        named = bool(failure.model) and failure.message.startswith(f"model {failure.model}")
+        console.error(f"FAILED {failure.message if named else f'{who}: {failure.message}'}")
     if result.failures:
         console.error(f"{len(result.failures)} run(s) failed; the others are complete — details in "
                       f"{Path(out) / 'report.md'}")

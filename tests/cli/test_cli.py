@@ -235,3 +235,24 @@ def test_emulate_bad_usage(tmp_path_factory, tmp_path):
                                 "--at", "ecs=3.0"), "case 'ecs=3': 'ecs' is not an emulator input",
                        "did you mean 'ecs_eff'?")
     assert not (tmp_path / "out").exists()
+
+
+# ------------------------------------------------------------------------------------------ unexpected errors
+
+
+def test_an_unexpected_error_is_one_line_with_the_traceback_in_the_log(tiny, tmp_path, monkeypatch):
+    import extractor
+
+    def broken(*args, **kwargs):
+        raise RuntimeError("something nobody planned for")
+
+    monkeypatch.setattr(extractor, "extract", broken)
+    archive, config = tiny
+    out = tmp_path / "out"
+    status, stdout, stderr = run_cli("extract", archive, "--out", out, "--config", config, "--quiet")
+    assert status == 1 and stdout == ""
+    assert stderr.count("\n") == 1 and "Traceback" not in stderr
+    assert "unexpected error (RuntimeError: something nobody planned for)" in stderr
+    assert f"the traceback is in {out / LOG_NAME}" in stderr
+    log = (out / LOG_NAME).read_text()
+    assert "Traceback (most recent call last)" in log and "raise RuntimeError" in log

@@ -3,7 +3,10 @@
 All members of a model are held out together (members share the model's physics, so holding out one
 member alone would flatter the emulator). For each held-out run:
 - end-of-pathway warming = mean of the last `END_YEARS` = 10 years (a decadal mean damps single-year noise);
-  its predictive interval comes from sampled pathways, so correlations between years are kept;
+  its predictive interval comes from sampled pathways, so correlations between years are kept: the variance
+  is that of a 10-year mean, with the internal variability's AR(1) correlation, not of one year;
+- the held-out pathway is a single realisation, so it is judged against the emulator's spread for one
+  realisation (forced-response uncertainty + internal variability; `PathwayEmulator.prediction_target_`);
 - RMSE and bias over the whole pathway; per-year coverage of the Gaussian 90 % interval;
 - standardized error z = (actual − predicted) / predictive sd of the end-of-pathway warming.
 """

@@ -421,8 +421,9 @@ class PathwayEmulator(BaseEstimator):
     def sample_paths(self, X, n_samples: int = 1000, random_state=None):
         """Random pathways from the predictive distribution: array (n_cases, n_samples, n_years).
 
-        Components are drawn from their GP marginals at each input; discarded components from their training
-        spread; internal variability as AR(1) noise. Correlations between years are kept, so derived
+        Components are drawn from their GP marginals at each input (Gaussian, with the small-sample variance
+        when that correction is on); discarded components from their training spread; internal variability as
+        AR(1) noise, so each pathway is one realisation. Correlations between years are kept, so derived
         quantities (decadal means, crossing years) are sampled consistently.
         """
         rng = np.random.default_rng(random_state)

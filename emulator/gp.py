@@ -418,6 +418,25 @@ class PathwayEmulator(BaseEstimator):
         var = (sd ** 2) @ (self.components_ ** 2) + self.truncation_variance_ + self.internal_variance_
         return mean, np.sqrt(var)
 
+    def spread_of_mean(self, X, last_years: int = 10) -> tuple[np.ndarray, np.ndarray]:
+        """Sd of the mean over the last `last_years` years at X, in two parts: (forced response — emulator
+        and structural, through the components and the truncation —, internal variability). Each (n_cases,).
+
+        The internal part is the sd of an L-year mean of AR(1) noise, σ² Σ_s Σ_t φ^|s−t| / L² (textbook).
+        """
+        _, sd = self.component_predictions(X)
+        last = int(min(max(1, last_years), self.components_.shape[1]))
+        kept = self.components_[:, -last:].mean(axis=1)
+        forced = (sd ** 2) @ (kept ** 2)
+        if len(self.truncated_scale_):
+            forced = forced + (self.truncated_scale_ ** 2) @ (self.truncated_components_[:, -last:].mean(axis=1) ** 2)
+        internal = 0.0
+        if self.internal_variability_ is not None:
+            sd_iv, phi = self.internal_variability_
+            lags = np.abs(np.subtract.outer(np.arange(last), np.arange(last)))
+            internal = sd_iv ** 2 * np.sum(phi ** lags) / last ** 2
+        return np.sqrt(forced), np.full(len(forced), np.sqrt(internal))
+
     def sample_paths(self, X, n_samples: int = 1000, random_state=None):
         """Random pathways from the predictive distribution: array (n_cases, n_samples, n_years).
 

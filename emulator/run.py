@@ -251,6 +251,7 @@ def emulate(extract_dir, out_dir, settings: EmulatorSettings = EmulatorSettings(
         "mean_parameters": details.get("mean_parameters"),
         "internal_variability": details.get("internal_variability"),
         "prediction_of": emulator.prediction_target_,
+        "end_spread": _end_spread(emulator, ts),
         "validation": validation_summary,
         "notes": [v for k, v in details.items() if k.endswith("_note")] + (
             [f"{len(emulator.fit_warnings_)} GP hyperparameter(s) ended at a search bound (usually a component the "
@@ -264,6 +265,14 @@ def emulate(extract_dir, out_dir, settings: EmulatorSettings = EmulatorSettings(
                            result, emulator, ts, calibration)
 
 
+def _end_spread(emulator: PathwayEmulator, ts: TrainingSet) -> dict:
+    """Where the spread of the end-of-pathway warming comes from, at the training inputs' median."""
+    x = np.median(ts.X, axis=0)
+    forced, internal = emulator.spread_of_mean(x[None, :], END_YEARS)
+    return {"at": {name: float(v) for name, v in zip(ts.inputs, x)}, "years": END_YEARS,
+            "forced_sd": float(forced[0]), "internal_sd": float(internal[0])}
+
+
 def format_summary(summary: dict) -> str:
     """A few lines for the console: scenario, runs, emulator, validation scores, where the outputs are."""
     lines = [f"scenario {summary['scenario']}: {summary['n_runs']} runs of {summary['n_models']} models, "
@@ -275,6 +284,11 @@ def format_summary(summary: dict) -> str:
                  f"residual variance); forcing {summary['forcing']}")
     if summary.get("prediction_of"):
         lines.append(f"predicts {summary['prediction_of']}")
+    e = summary.get("end_spread")
+    if e:
+        at = ", ".join(f"{k}={v:.3g}" for k, v in e["at"].items())
+        lines.append(f"spread (1 sd) of the last-{e['years']}-year mean at {at}: forced response (emulator and "
+                     f"structural) {e['forced_sd']:.3f} K, internal variability {e['internal_sd']:.3f} K")
     v = summary.get("validation")
     if v:
         lines.append(

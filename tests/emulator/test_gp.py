@@ -132,6 +132,13 @@ def test_variance_adds_up_and_sampling_agrees():
     paths = em.sample_paths([[3.2]], 20000, random_state=1)
     np.testing.assert_allclose(paths[0].mean(0), mean[0], atol=4 * sd.max() / np.sqrt(20000))
     np.testing.assert_allclose(paths[0].std(0), sd[0], rtol=0.05)
+    # the sd of the last-10-year mean, split into forced and internal parts, adds up to the sampled one; the
+    # internal part is an AR(1) 10-year mean: σ² Σ_s Σ_t φ^|s−t| / 100 (textbook, computed by hand here)
+    forced, internal = em.spread_of_mean([[3.2]], 10)
+    ar1_decade = 0.1 ** 2 * sum(0.5 ** abs(a - b) for a in range(10) for b in range(10)) / 100
+    assert internal[0] == pytest.approx(np.sqrt(ar1_decade), rel=1e-12)
+    total = np.hypot(forced[0], internal[0])
+    assert paths[0, :, -10:].mean(axis=1).std() == pytest.approx(total, rel=0.05)
 
 
 def test_ar1_noise_is_stationary_with_given_lag1():

@@ -127,6 +127,7 @@ def fingerprint(unit: Unit, settings: ExtractionSettings) -> str:
     payload = {k: v for k, v in dataclasses.asdict(settings).items() if k != "extra"}
     h.update(json.dumps(payload, sort_keys=True, default=str).encode())
     h.update(__version__.encode())
+    h.update(",".join(ALL_COLUMNS).encode())  # a cached row must have today's columns
     for run in unit.runs():
         for path in sorted(run.all_files()):
             st = os.stat(path)
@@ -487,7 +488,8 @@ def _extract_locked(archive, out_dir: Path, settings: ExtractionSettings, *, for
             broken[label] = empty
 
     computed = []
-    for unit in todo:
+    for position, unit in enumerate(todo, start=1):
+        log(f"{position}/{len(todo)} {unit.model} {unit.member}: fitting")
         bad = [r for r in unit.runs() if r.label in broken]
         essential = [r for r in bad if r is unit.control or r is unit.abrupt]
         for run in bad:

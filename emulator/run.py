@@ -104,8 +104,21 @@ def _scenario_forcing(ts: TrainingSet, settings: EmulatorSettings, calibration: 
     raise EmulatorInputError(f"unknown forcing_source {source!r}", hint="use diagnosed, co2 or file")
 
 
+def per_model(ts: TrainingSet) -> tuple[np.ndarray, np.ndarray]:
+    """(X, Y) with one row per model (in order of first appearance): the means over its members."""
+    models = list(dict.fromkeys(ts.models))
+    X = np.array([ts.X[ts.models == m].mean(axis=0) for m in models])
+    Y = np.array([ts.Y[ts.models == m].mean(axis=0) for m in models])
+    return X, Y
+
+
 def build_emulator(ts: TrainingSet, settings: EmulatorSettings, calibration: pd.DataFrame):
     """Everything learned from a training set: mean parameters, forcing, internal variability, the fit.
+
+    The GP is fitted to one point per model: the members of a model are averaged (inputs and pathways). They
+    differ only by internal variability, which the emulator adds separately; as separate points they would
+    look like exact repeats and shrink the fitted model-to-model (structural) scatter, and the small-sample
+    variance would count runs rather than models (one model, one vote: common practice in multi-model work).
 
     Returns (fitted emulator, details dict). Used for the final fit and for every validation fold.
     """
@@ -129,7 +142,7 @@ def build_emulator(ts: TrainingSet, settings: EmulatorSettings, calibration: pd.
         max_components=settings.max_components, kernel=settings.kernel, internal_variability=iv,
         smoothing=settings.smoothing, small_sample_correction=settings.small_sample_correction,
         n_restarts_optimizer=settings.n_restarts_optimizer, random_state=settings.random_state,
-    ).fit(ts.X, ts.Y, forcing=forcing, mean_params=mean_params)
+    ).fit(*per_model(ts), forcing=forcing, mean_params=mean_params)
     return emulator, details
 
 

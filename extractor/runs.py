@@ -11,7 +11,6 @@ from __future__ import annotations
 import re
 from pathlib import Path
 
-import netCDF4
 import numpy as np
 import xarray as xr
 
@@ -25,14 +24,6 @@ DEFAULT_CHUNKS = None  # sized per file: whole years, about CHUNK_BYTES of data 
 # A chunk of ~64 MB keeps task overhead small on coarse grids and memory bounded on fine ones
 # (a 1° month of float32 is 0.26 MB, so ~20 years; an 8×16 grid takes a whole file in one chunk).
 CHUNK_BYTES = 64 * 2**20
-
-# netCDF-C gives every variable of every open file a cache of decompressed HDF5 chunks (64 MB by default);
-# xarray keeps up to 128 files open, so on a 1° archive the caches grew to the size of the data read
-# (2 GB for 0.9 GB of files, measured). Each chunk is read once here: a cache holding one storage chunk
-# (a year of a 1° field is 3 MB) is all that helps, the one that straddles two dask chunks.
-# netCDF4.set_chunk_cache sets the default for files opened later in this process.
-HDF5_CHUNK_CACHE_BYTES = 4 * 2**20
-netCDF4.set_chunk_cache(HDF5_CHUNK_CACHE_BYTES, 1009, 0.75)
 
 #: variables a run must have unless the caller says otherwise (DESIGN.md: tas, rsdt, rsut, rlut)
 REQUIRED_VARIABLES = ExtractionSettings().required_variables

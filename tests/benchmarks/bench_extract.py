@@ -160,6 +160,7 @@ def main() -> None:
     parser.add_argument("--child", choices=("read", "extract", "xarray"), help=argparse.SUPPRESS)
     parser.add_argument("--archive", help=argparse.SUPPRESS)
     parser.add_argument("--out", help=argparse.SUPPRESS)
+    parser.add_argument("--compute", help=argparse.SUPPRESS)  # KIND:WORKERS for the extractor child
     args = parser.parse_args()
     years = parse_years(args.years)
 
@@ -168,7 +169,11 @@ def main() -> None:
         if args.child == "read":
             child_read(archive)
         elif args.child == "extract":
-            child_extract(archive, Path(args.out), years)
+            compute = None
+            if args.compute:
+                kind, _, workers = args.compute.partition(":")
+                compute = {"kind": kind, "workers": int(workers or 1)}
+            child_extract(archive, Path(args.out), years, compute)
         else:
             child_xarray(archive)
         return

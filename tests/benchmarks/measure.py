@@ -133,7 +133,10 @@ def run_child(args: list[str], timeout: float = 3600) -> dict:
     result = json.loads(out.strip().splitlines()[-1])
     result["peak_tree_mib"] = poller.peak_total / MiB
     result["peak_single_mib"] = poller.peak_single / MiB
-    result["peak_by_process_mib"] = sorted((v / MiB for v in poller.peak_by_pid.values()), reverse=True)
+    result["peak_child_mib"] = poller.peak_by_pid.get(proc.pid, 0) / MiB
+    # the child's descendants: dask worker (and nanny) processes when the child runs a process pool
+    result["peak_descendants_mib"] = sorted((v / MiB for pid, v in poller.peak_by_pid.items() if pid != proc.pid),
+                                            reverse=True)
     return result
 
 

@@ -159,24 +159,23 @@ def _grid(text: str) -> tuple[int, int]:
     return nlat, nlon
 
 
-def _positive(text: str) -> int:
-    try:
-        value = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"{text!r} is not a whole number") from None
-    if value < 1:
-        raise argparse.ArgumentTypeError(f"{text!r}: must be at least 1")
-    return value
+def _whole_number(minimum: int):
+    """An argparse type: a whole number of at least `minimum`."""
+
+    def parse(text: str) -> int:
+        try:
+            value = int(text)
+        except ValueError:
+            raise argparse.ArgumentTypeError(f"{text!r} is not a whole number") from None
+        if value < minimum:
+            raise argparse.ArgumentTypeError(f"{text!r}: must be at least {minimum}")
+        return value
+
+    return parse
 
 
-def _non_negative(text: str) -> int:
-    try:
-        value = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"{text!r} is not a whole number") from None
-    if value < 0:
-        raise argparse.ArgumentTypeError(f"{text!r}: must be 0 or more")
-    return value
+_positive = _whole_number(1)
+_non_negative = _whole_number(0)
 
 
 def build_parser() -> argparse.ArgumentParser:

@@ -150,7 +150,9 @@ def open_run(
     data_vars = {}
     for variable, da in series.items():
         keep = np.flatnonzero(np.isin(months[variable], common))
-        data_vars[variable] = da.isel(time=keep).assign_coords(time=time.values)
+        # all steps kept (the usual case): no indexing layer, which would copy every chunk
+        part = da if keep.size == da.sizes["time"] else da.isel(time=keep)
+        data_vars[variable] = part.assign_coords(time=time.values)
     ds = xr.Dataset(data_vars)
     ds["time"].attrs = {k: v for k, v in time.attrs.items() if k != "bounds"}
     if reference in bounds:

@@ -362,8 +362,11 @@ def _time_bounds(opened: list) -> xr.DataArray | None:
         if not name or name not in ds.variables:
             return None
         b = ds[name]
-        parts.append(b.rename({d: "bnds" for d in b.dims if d != "time"}))
-    return xr.concat(parts, dim="time", coords="minimal", compat="override", join="override").rename("time_bnds")
+        parts.append(b.rename({d: "bnds" for d in b.dims if d != "time"}).transpose("time", "bnds"))
+    # joined as plain arrays: xr.concat would align the files' cftime indexes (slow, and open_run puts the
+    # run's time coordinate on the bounds anyway)
+    values = np.concatenate([np.asarray(b.values) for b in parts])
+    return xr.DataArray(values, dims=("time", "bnds"), name="time_bnds", attrs=dict(parts[0].attrs))
 
 
 def open_area(run: RunFiles) -> xr.DataArray | None:

@@ -87,6 +87,13 @@ def child_extract(archive: Path, out: Path, years: dict, compute: dict | None = 
     if compute:
         from sensemble.compute import ComputeSettings, open_compute
 
+        mmap_threshold = compute.pop("mmap_threshold", None)
+        if mmap_threshold:
+            import dask
+
+            # glibc: allocations above this size come from the heap, not a fresh mmap (see bench_scale.py)
+            dask.config.set({"distributed.nanny.pre-spawn-environ.MALLOC_MMAP_THRESHOLD_": int(mmap_threshold)})
+
         with open_compute(ComputeSettings(**compute)):
             started = time.perf_counter()  # the cluster's start-up is not the extractor's time
             result = extract(archive, out, settings, force=True, progress=False, figures=False)
@@ -171,8 +178,8 @@ def main() -> None:
         elif args.child == "extract":
             compute = None
             if args.compute:
-                kind, _, workers = args.compute.partition(":")
-                compute = {"kind": kind, "workers": int(workers or 1)}
+                kind, workers, mmap_threshold = (args.compute.split(":") + ["1", ""])[:3]
+                compute = {"kind": kind, "workers": int(workers or 1), "mmap_threshold": mmap_threshold}
             child_extract(archive, Path(args.out), years, compute)
         else:
             child_xarray(archive)

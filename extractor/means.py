@@ -185,8 +185,9 @@ def global_mean(da: xr.DataArray, weights: xr.DataArray) -> xr.DataArray:
 
     ``sum(w·x) / sum(w)`` with both sums over the cells where ``x`` is present, so missing
     (NaN or decoded fill-value) cells drop out of numerator and denominator alike. Sums
-    accumulate in float64. On a dask array nothing is computed: both sums are reductions of
-    the same chunks, so one ``dask.compute`` reads each chunk once.
+    accumulate in float64. On a dask array nothing is computed: each chunk (the grid whole in
+    it) becomes one task giving its own time steps' means, so one ``dask.compute`` reads each
+    chunk once.
 
     Returns a DataArray over the remaining dims (usually ``time``) with the attributes of
     ``da`` and ``"area: mean"`` appended to ``cell_methods``. A time step with no valid cell is NaN.

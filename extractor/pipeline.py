@@ -121,16 +121,25 @@ def plan_units(catalog: Catalog, settings: ExtractionSettings) -> tuple[list[Uni
     return units, failures
 
 
-def fingerprint(unit: Unit, settings: ExtractionSettings) -> str:
+def _settings_record(settings: ExtractionSettings) -> dict:
+    """The settings as plain data, for the cache fingerprint and the provenance of the outputs."""
+    return {k: v for k, v in dataclasses.asdict(settings).items() if k != "extra"}
+
+
+def _file_stats(units: list[Unit]) -> dict[Path, os.stat_result]:
+    """Size and modification time of every input file, read once per batch (a control serves several members)."""
+    return {path: os.stat(path) for unit in units for run in unit.runs() for path in run.all_files()}
+
+
+def fingerprint(unit: Unit, settings: ExtractionSettings, stats: dict[Path, os.stat_result]) -> str:
     """Hash of everything a unit's results depend on: settings, software version, input files (size, mtime)."""
     h = hashlib.sha256()
-    payload = {k: v for k, v in dataclasses.asdict(settings).items() if k != "extra"}
-    h.update(json.dumps(payload, sort_keys=True, default=str).encode())
+    h.update(json.dumps(_settings_record(settings), sort_keys=True, default=str).encode())
     h.update(__version__.encode())
     h.update(",".join(ALL_COLUMNS).encode())  # a cached row must have today's columns
     for run in unit.runs():
         for path in sorted(run.all_files()):
-            st = os.stat(path)
+            st = stats[path]
             h.update(f"{run.experiment_id}|{path}|{st.st_size}|{st.st_mtime_ns}\n".encode())
     return h.hexdigest()
 
@@ -267,18 +276,17 @@ def write_series(path: Path, groups: dict[str, xr.Dataset], attrs: dict) -> Path
     return path
 
 
-def _noise(control_annual: xr.Dataset, name: str) -> float | None:
-    """Standard deviation of the control's detrended annual means: the internal variability of `name`."""
-    if name not in control_annual:
+def _noise(residuals: xr.Dataset, name: str) -> float | None:
+    """Standard deviation of the control's drift-removed annual means: the internal variability of `name`."""
+    if name not in residuals:
         return None
-    values = np.asarray(control_annual[name].values, dtype=float)
-    years = np.arange(values.size, dtype=float)
-    residual = values - np.polyval(np.polyfit(years, values, 1), years)
-    sd = float(np.std(residual, ddof=2)) if values.size > 2 else 0.0
+    # the drift fit used up drift_order + 1 degrees of freedom
+    sd = float(np.std(residuals[name].values, ddof=int(residuals.attrs["drift_order"]) + 1))
     return sd if sd > 0 else None
 
 
-def _fit_row(unit: Unit, anomalies: xr.Dataset | None, tcr_value, control_annual, settings, flags) -> dict:
+def _fit_row(unit: Unit, anomalies: xr.Dataset | None, tcr_value, control_annual, residuals, settings,
+             flags) -> dict:
     row = {c: None for c in ALL_COLUMNS}
     row.update(model=unit.model, member=unit.member)
     fit = None
@@ -305,7 +313,7 @@ def _fit_row(unit: Unit, anomalies: xr.Dataset | None, tcr_value, control_annual
         if settings.orthogonal_fit:
             # errors in both variables (scipy.odr), noise scales from the control's internal variability
             odr = odr_fit(dT, dN, years=settings.fit_years, forcing_ratio=settings.forcing_ratio,
-                          tas_noise=_noise(control_annual, "tas"), rtnt_noise=_noise(control_annual, "rtnt"))
+                          tas_noise=_noise(residuals, "tas"), rtnt_noise=_noise(residuals, "rtnt"))
             row.update(erf_4x_odr=odr.erf, feedback_odr=odr.feedback, ecs_eff_odr=odr.ecs_eff)
         comps = component_feedbacks(anomalies, years=settings.fit_years)
         if comps is not None:
@@ -378,7 +386,7 @@ def _process_unit(unit: Unit, series: dict[str, xr.Dataset], settings, out_dir: 
         flags.extend(more)
         groups[exp_id] = _group(anom, "scenario")
 
-    row = _fit_row(unit, abrupt_anom, tcr_value, control, settings, flags)
+    row = _fit_row(unit, abrupt_anom, tcr_value, control, residuals, settings, flags)
     attrs = {
         "Conventions": "CF-1.10",
         "title": f"Annual global-mean anomalies of {unit.model} {unit.member}, drift-corrected against the control",
@@ -453,8 +461,9 @@ def _extract_locked(archive, out_dir: Path, settings: ExtractionSettings, *, for
 
     rows, cached, todo = [], [], []
     fps = {}
+    stats = _file_stats(units)
     for unit in units:
-        fps[unit.key] = fingerprint(unit, settings)
+        fps[unit.key] = fingerprint(unit, settings, stats)
         row = None if force else _cached_row(out_dir / "series" / f"{safe_name(unit.key)}.nc", fps[unit.key])
         if row is not None:
             rows.append(row)
@@ -515,15 +524,15 @@ def _extract_locked(archive, out_dir: Path, settings: ExtractionSettings, *, for
     provenance = {
         "software_version": __version__,
         "history": f"{time.strftime('%Y-%m-%dT%H:%M:%SZ', time.gmtime())} sensemble extract {archive}",
-        "config": {k: v for k, v in dataclasses.asdict(settings).items() if k != "extra"},
-        "input_files": _file_list(units),
+        "config": _settings_record(settings),
+        "input_files": sorted(f"{path} size={st.st_size} mtime={int(st.st_mtime)}" for path, st in stats.items()),
     }
     write_table(rows, out_dir, provenance)
     if figures and rows:
         ensemble_summary(rows, out_dir / "figures" / "ensemble_summary.png")
     result = ExtractionResult(out_dir, sorted(rows, key=lambda r: (r["model"], r["member"])), failures,
                               list(catalog.problems), cached, computed, time.perf_counter() - start,
-                              files_read=len(files), bytes_read=sum(os.stat(p).st_size for p in files), notes=notes)
+                              files_read=len(files), bytes_read=sum(stats[p].st_size for p in files), notes=notes)
     write_report(result, settings, archive)
     return result
 
@@ -538,16 +547,6 @@ def _one_line(err: BaseException, run: RunFiles) -> str:
     if isinstance(err, ArchiveError) or text.startswith("model "):
         return text
     return f"{run.label}: {text}"
-
-
-def _file_list(units: list[Unit]) -> list[str]:
-    out = []
-    for unit in units:
-        for run in unit.runs():
-            for path in run.all_files():
-                st = os.stat(path)
-                out.append(f"{path} size={st.st_size} mtime={int(st.st_mtime)}")
-    return sorted(set(out))
 
 
 def _who(attrs) -> str:

@@ -22,7 +22,6 @@ from __future__ import annotations
 import dataclasses
 import datetime
 import difflib
-import hashlib
 import math
 import os
 import re
@@ -699,21 +698,6 @@ def dump_config(config: BatchConfig) -> str:
                 lines.append(f"[[{section}.{_toml_key(key)}]]")
                 lines.extend(f"{_toml_key(k)} = {_toml_value(v)}" for k, v in entry.items())
     return "\n".join(lines) + "\n"
-
-
-def settings_fingerprint(config: BatchConfig, sections: tuple[str, ...] = ("archive", "extraction")) -> str:
-    """SHA-256 of the named sections' effective values, for caching per-run results.
-
-    Defaults filled in, so a key written out at its default gives the same fingerprint as the
-    key left out; the order of keys in the file does not matter. `[archive]` includes `root`.
-    """
-    data = config_to_dict(config)
-    canonical = "\n".join(
-        f"{section}.{key} = {_toml_value(data[section][key])}"
-        for section in sorted(sections)
-        for key in sorted(data[section])
-    )
-    return hashlib.sha256(canonical.encode("utf-8")).hexdigest()
 
 
 def shipped_config(name: str) -> Path:

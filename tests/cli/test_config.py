@@ -16,7 +16,6 @@ from sensemble.config import (
     merge_overrides,
     save_config,
     section_keys,
-    settings_fingerprint,
     shipped_config,
 )
 
@@ -319,14 +318,3 @@ def test_shipped_config_is_found_by_name():
     assert shipped_config("demo") == CONFIGS / "demo.toml"
     with pytest.raises(ConfigError, match="no shipped config 'nonesuch'"):
         shipped_config("nonesuch")
-
-
-def test_fingerprint_follows_values_not_spelling():
-    defaults = config_from_dict({})
-    spelled_out = config_from_dict({"extraction": {"drift_order": 1, "fit_years": [1, 150]}})
-    changed = config_from_dict({"extraction": {"drift_order": 2}})
-    other_section = config_from_dict({"prediction": {"n_samples": 10}})
-    assert settings_fingerprint(defaults) == settings_fingerprint(spelled_out)
-    assert settings_fingerprint(defaults) != settings_fingerprint(changed)
-    assert settings_fingerprint(defaults) == settings_fingerprint(other_section)
-    assert settings_fingerprint(defaults, ("prediction",)) != settings_fingerprint(other_section, ("prediction",))

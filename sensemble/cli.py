@@ -289,6 +289,18 @@ def _run_emulate(source, out, config, console: Console):
     return result
 
 
+def _extract_then_emulate(archive, out: Path, config, console: Console, emulate_step: str):
+    """Extract into OUT/extract, then emulate into OUT/emulate; None when no model could be extracted."""
+    result = _run_extract(archive, out / "extract", config, console)
+    _write_effective_config(config, out, console)
+    if not result.rows:
+        console.error("no model could be extracted, so nothing to emulate")
+        return None
+    console(f"{emulate_step} emulating warming pathways")
+    _run_emulate(out / "extract", out / "emulate", config, console)
+    return result
+
+
 def _header(args) -> str:
     return f"sensemble {_version()} (pid {os.getpid()}): sensemble {' '.join(map(shlex.quote, args.argv))}"
 
@@ -343,13 +355,9 @@ def cmd_demo(args, console: Console) -> int:
     else:
         console(f"1/3 reusing the demo archive in {archive} (--force to rebuild)")
     console("2/3 extracting sensitivities")
-    result = _run_extract(archive, out / "extract", config, console)
-    _write_effective_config(config, out, console)
-    if not result.rows:
-        console.error("no model could be extracted, so nothing to emulate")
+    result = _extract_then_emulate(archive, out, config, console, emulate_step="3/3")
+    if result is None:
         return EXIT_RUNS_FAILED
-    console("3/3 emulating warming pathways")
-    _run_emulate(out / "extract", out / "emulate", config, console)
     console(f"done in {time.perf_counter() - t0:.0f} s; outputs in {out}/ (report: {out / 'extract' / 'report.md'}, "
             f"log: {console.log_path})")
     return EXIT_RUNS_FAILED if result.failures else EXIT_OK
@@ -432,13 +440,9 @@ def cmd_run(args, console: Console) -> int:
     console.open_log(out, _header(args))
     t0 = time.perf_counter()
     console(f"1/2 extracting sensitivities from {config.archive.root}")
-    result = _run_extract(config.archive.root, out / "extract", config, console)
-    _write_effective_config(config, out, console)
-    if not result.rows:
-        console.error("no model could be extracted, so nothing to emulate")
+    result = _extract_then_emulate(config.archive.root, out, config, console, emulate_step="2/2")
+    if result is None:
         return EXIT_RUNS_FAILED
-    console("2/2 emulating warming pathways")
-    _run_emulate(out / "extract", out / "emulate", config, console)
     console(f"done in {time.perf_counter() - t0:.0f} s; outputs in {out}/ (log: {console.log_path})")
     return EXIT_RUNS_FAILED if result.failures else EXIT_OK
 

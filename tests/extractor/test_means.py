@@ -10,17 +10,13 @@ from hypothesis import given, settings
 
 from extractor.errors import ArchiveError
 from extractor.means import EARTH_RADIUS_M, area_weights, global_mean
+from tests.extractor.conftest import grid
 
 R = 6_371_000.0  # mean Earth radius, 6 371 km (handbook value)
 
 
 def regular_grid(nlat, nlon, descending=False):
-    lat_edges = np.linspace(-90.0, 90.0, nlat + 1)
-    lon_edges = np.linspace(0.0, 360.0, nlon + 1)
-    lat = 0.5 * (lat_edges[:-1] + lat_edges[1:])
-    lon = 0.5 * (lon_edges[:-1] + lon_edges[1:])
-    lat_bnds = np.stack([lat_edges[:-1], lat_edges[1:]], axis=1)
-    lon_bnds = np.stack([lon_edges[:-1], lon_edges[1:]], axis=1)
+    lat, lon, lat_bnds, lon_bnds = grid(nlat, nlon)
     if descending:
         lat, lat_bnds = lat[::-1], lat_bnds[::-1, ::-1]
     ds = xr.Dataset(
@@ -86,8 +82,8 @@ def test_constant_field_mean_is_the_constant_for_every_weight_source(source):
     # the weighted mean of a constant is that constant, whatever the weights (common practice, no source)
     ds = regular_grid(4, 8)
     areacella = areacella_of(ds) if source == "areacella" else None
-    grid = ds.drop_vars(["lat_bnds", "lon_bnds"]) if source == "cos" else ds
-    weights, flag = area_weights(grid, areacella)
+    weighted_on = ds.drop_vars(["lat_bnds", "lon_bnds"]) if source == "cos" else ds
+    weights, flag = area_weights(weighted_on, areacella)
     assert flag == ("cos_weights" if source == "cos" else None)
     mean = global_mean(field(ds, 287.25), weights).compute()
     np.testing.assert_allclose(mean.values, 287.25, rtol=0, atol=1e-9)

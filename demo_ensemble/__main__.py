@@ -1,4 +1,4 @@
-"""`python -m demo_ensemble DIR [--models N] [--seed S] [--grid NLATxNLON]`: write the demo archive."""
+"""`python -m sensemble.demo DIR [--models N] [--seed S] [--grid NLATxNLON]`: write the demo archive."""
 from __future__ import annotations
 
 import argparse
@@ -15,7 +15,7 @@ def _size_mb(folder: Path) -> float:
 
 
 def main(argv=None) -> int:
-    parser = argparse.ArgumentParser(prog="python -m demo_ensemble",
+    parser = argparse.ArgumentParser(prog="python -m sensemble.demo",
                                      description="Write a synthetic CMIP-style archive of invented models "
                                                  "(+ truth.csv) into DIR.")
     parser.add_argument("dir", type=Path, help="output folder (gets archive/, truth.csv, scenario_forcing.csv)")

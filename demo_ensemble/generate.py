@@ -95,7 +95,8 @@ def generate(root, *, n_models: int = 8, seed: int = 0, grid=DEFAULT_GRID, years
 
     Example
     -------
-    >>> import tempfile, demo_ensemble
+    >>> import tempfile
+    >>> from sensemble import demo as demo_ensemble
     >>> root = demo_ensemble.generate(tempfile.mkdtemp(), n_models=1, grid=(6, 12),
     ...     years={"control": 30, "abrupt": 20, "onepct": 20, "historical": 10, "scenario": 5})
     >>> sorted(p.name for p in (root / "archive").iterdir() if not p.name.startswith("."))

@@ -23,7 +23,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.signal import lfilter
 
-from emulator.ebm import TwoLayerParameters, integrate
+from sensemble.emulator.ebm import TwoLayerParameters, integrate
 
 from .calendar import month_days
 from .forcing import chain_forcing, run_forcing

@@ -1,7 +1,7 @@
 """Emulator stage: extractor output files → two-layer physics mean + Gaussian-process pathway emulator →
 predictions, crossings, validation, figures. Entry point: `emulate` (emulator.run).
 
-Names are imported lazily so that `import emulator.ebm` (used by the demo generator) stays light.
+Names are imported lazily so that `import sensemble.emulator.ebm` (used by the demo generator) stays light.
 """
 from __future__ import annotations
 
@@ -20,4 +20,4 @@ __all__ = sorted(_EXPORTS)
 def __getattr__(name):
     if name in _EXPORTS:
         return getattr(importlib.import_module(f".{_EXPORTS[name]}", __name__), name)
-    raise AttributeError(f"module 'emulator' has no attribute {name!r}")
+    raise AttributeError(f"module sensemble.emulator has no attribute {name!r}")

@@ -2,7 +2,6 @@
 
 The public entry point is `extractor.extract`; each step is its own module (see DEVELOPERS.md).
 """
-__version__ = "0.1.0"
 
 
 def extract(*args, **kwargs):

@@ -4,7 +4,7 @@ from __future__ import annotations
 import math
 from collections.abc import Iterable
 
-from extractor.settings import ExtractionSettings
+from sensemble.extractor.settings import ExtractionSettings
 
 ENERGY_LEAK = "energy_leak"
 POOR_FIT = "poor_fit"

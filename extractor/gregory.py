@@ -17,7 +17,7 @@ from dataclasses import dataclass
 import numpy as np
 import xarray as xr
 
-from extractor.settings import ExtractionSettings
+from sensemble.extractor.settings import ExtractionSettings
 
 _DEFAULTS = ExtractionSettings()
 

@@ -18,7 +18,7 @@ import dask
 import numpy as np
 import xarray as xr
 
-from . import __version__
+from sensemble import __version__
 from .annual import annual_means
 from .atomic import atomic_path
 from .budget import toa_budget

@@ -3,8 +3,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from extractor.gregory import window
-from extractor.settings import ExtractionSettings
+from sensemble.extractor.gregory import window
+from sensemble.extractor.settings import ExtractionSettings
 
 _DEFAULTS = ExtractionSettings()
 

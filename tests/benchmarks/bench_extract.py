@@ -37,7 +37,7 @@ HERE = Path(__file__).resolve()
 
 def settings_for(years: dict):
     """Extraction settings whose fit windows fit the shortened runs of the benchmark archive."""
-    from extractor.settings import ExtractionSettings
+    from sensemble.extractor.settings import ExtractionSettings
 
     a, o = years["abrupt"], years["onepct"]
     half = max(3, a // 2)
@@ -83,7 +83,7 @@ def child_extract(archive: Path, out: Path, years: dict, compute: dict | None = 
     """(b) The extractor, cache off (force), figures off, on the scheduler `compute` asks for."""
     import shutil
 
-    from extractor.pipeline import extract
+    from sensemble.extractor.pipeline import extract
 
     base = rss_now_mib()
     shutil.rmtree(out, ignore_errors=True)

@@ -15,9 +15,9 @@ import time
 
 import numpy as np
 
-from emulator.ebm import TwoLayerParameters, integrate
-from emulator.gp import PathwayEmulator, ar1_noise
-from emulator.predict import crossing_years, lognormal_samples
+from sensemble.emulator.ebm import TwoLayerParameters, integrate
+from sensemble.emulator.gp import PathwayEmulator, ar1_noise
+from sensemble.emulator.predict import crossing_years, lognormal_samples
 
 N_YEARS = 250
 N_PATHS = 100_000

@@ -45,7 +45,7 @@ def load() -> str:
 
 def archive_for(folder: Path, grid: tuple[int, int], models: int, years: dict, seed: int = 0) -> Path:
     """A demo archive for these parameters under `folder`, generated once and reused afterwards."""
-    import demo_ensemble
+    from sensemble import demo as demo_ensemble
 
     name = f"demo_{grid[0]}x{grid[1]}_m{models}_" + "_".join(f"{k[:3]}{years[k]}" for k in sorted(years))
     root = Path(folder) / name

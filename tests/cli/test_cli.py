@@ -13,7 +13,7 @@ from pathlib import Path
 
 import pytest
 
-from extractor.lock import LOCK_NAME
+from sensemble.extractor.lock import LOCK_NAME
 from sensemble.cli import LOG_NAME
 from sensemble.config import load_config
 from tests.cli.test_run import run_cli, shared_batch
@@ -241,7 +241,7 @@ def test_emulate_bad_usage(tmp_path_factory, tmp_path):
 
 
 def test_an_unexpected_error_is_one_line_with_the_traceback_in_the_log(tiny, tmp_path, monkeypatch):
-    import extractor
+    from sensemble import extractor
 
     def broken(*args, **kwargs):
         raise RuntimeError("something nobody planned for")

@@ -200,8 +200,8 @@ quiet = true
 
 def test_every_settings_field_is_a_key():
     # keys come from the dataclasses: a field added to a settings class is a key at once
-    from emulator.settings import EmulatorSettings, PredictionSettings
-    from extractor.settings import ExtractionSettings
+    from sensemble.emulator.settings import EmulatorSettings, PredictionSettings
+    from sensemble.extractor.settings import ExtractionSettings
 
     keys = section_keys()
     valid = {key for table in keys.values() for key in table}

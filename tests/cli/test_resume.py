@@ -16,7 +16,7 @@ from pathlib import Path
 
 import xarray as xr
 
-from extractor.lock import LOCK_NAME
+from sensemble.extractor.lock import LOCK_NAME
 from tests.cli.test_run import log_lines, run_cli, shared_batch
 
 ROOT = Path(__file__).resolve().parents[2]

@@ -19,8 +19,8 @@ from pathlib import Path
 import dask.array as da
 import numpy as np
 
-import demo_ensemble
-from extractor.pipeline import extract
+from sensemble import demo as demo_ensemble
+from sensemble.extractor.pipeline import extract
 from sensemble.cli import LOG_NAME, Console, _CoarseProgress, main
 from sensemble.compute import ComputeSettings, active_client, open_compute
 from sensemble.config import load_config

@@ -12,10 +12,10 @@ import numpy as np
 import pytest
 from scipy import stats
 
-import demo_ensemble
-from demo_ensemble.calendar import annual_mean
-from demo_ensemble.models import draw_models
-from demo_ensemble.series import simulate
+from sensemble import demo as demo_ensemble
+from sensemble.demo.calendar import annual_mean
+from sensemble.demo.models import draw_models
+from sensemble.demo.series import simulate
 
 # Tiny archives: four models (one per calendar), 6 x 12 grid, shortened runs. The control is long
 # enough for a 50-year file split (Cobble-3 writes 50-year files) and the 1 % run reaches year 80 (TCR).
@@ -335,7 +335,7 @@ def test_refuses_a_folder_it_did_not_write(tmp_path):
 
 
 def test_command_line(tmp_path):
-    out = subprocess.run([sys.executable, "-m", "demo_ensemble", str(tmp_path / "d"), "--models", "1",
+    out = subprocess.run([sys.executable, "-m", "sensemble.demo", str(tmp_path / "d"), "--models", "1",
                           "--seed", "2", "--grid", "6x8", "--quiet", "--years",
                           "control=12,abrupt=5,onepct=5,historical=3,scenario=2"], capture_output=True, text=True)
     assert out.returncode == 0, out.stderr
@@ -344,7 +344,7 @@ def test_command_line(tmp_path):
     assert len(list((tmp_path / "d" / "archive").rglob("tas_Amon_*_piControl_*.nc"))) == 1
     with netCDF4.Dataset(next((tmp_path / "d" / "archive").rglob("tas_Amon_*_piControl_*.nc"))) as ds:
         assert ds.dimensions["time"].size == 12 * 12 and ds["tas"].shape[1:] == (6, 8)
-    bad = subprocess.run([sys.executable, "-m", "demo_ensemble", str(tmp_path / "e"), "--grid", "six"],
+    bad = subprocess.run([sys.executable, "-m", "sensemble.demo", str(tmp_path / "e"), "--grid", "six"],
                          capture_output=True, text=True)
     assert bad.returncode == 2 and "NLATxNLON" in bad.stderr
 

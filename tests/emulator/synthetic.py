@@ -12,7 +12,7 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
-from emulator.ebm import TwoLayerParameters, integrate, toa_imbalance
+from sensemble.emulator.ebm import TwoLayerParameters, integrate, toa_imbalance
 
 CONTRACT_COLUMNS = [
     "model", "member", "erf_4x", "erf_4x_se", "feedback", "feedback_se", "ecs_eff", "ecs_eff_q05",

@@ -2,8 +2,8 @@
 import numpy as np
 import pytest
 
-from emulator.calibrate import calibrate_two_layer
-from emulator.ebm import TwoLayerParameters, integrate, toa_imbalance
+from sensemble.emulator.calibrate import calibrate_two_layer
+from sensemble.emulator.ebm import TwoLayerParameters, integrate, toa_imbalance
 
 from .synthetic import ar1
 
@@ -59,7 +59,7 @@ def test_with_noise_within_stated_tolerances():
 
 
 def test_unstable_series_is_refused():
-    from emulator.errors import EmulatorInputError
+    from sensemble.emulator.errors import EmulatorInputError
     t = np.linspace(0.5, 5, 150)
     with pytest.raises(EmulatorInputError, match="not a stable response"):
         calibrate_two_layer(t, 1.0 + 0.1 * t)

@@ -2,7 +2,7 @@
 import numpy as np
 import pytest
 
-from emulator.ebm import (
+from sensemble.emulator.ebm import (
     TwoLayerParameters,
     integrate,
     modes,

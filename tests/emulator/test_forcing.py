@@ -4,9 +4,9 @@ import pandas as pd
 import pytest
 import xarray as xr
 
-from emulator.errors import EmulatorInputError
-from emulator.forcing import align_forcing, co2_forcing, diagnose_forcing, read_forcing_file
-from emulator.training import load_training_set
+from sensemble.emulator.errors import EmulatorInputError
+from sensemble.emulator.forcing import align_forcing, co2_forcing, diagnose_forcing, read_forcing_file
+from sensemble.emulator.training import load_training_set
 
 from .synthetic import scenario_forcing
 
@@ -63,7 +63,7 @@ def test_diagnosis_recovers_known_scenario_forcing(extract_dir):
 
 def test_diagnosis_exact_without_noise():
     # Same identity, noise-free single run: exact (Geoffroy et al. 2013a: N = F − λT for ε = 1).
-    from emulator.ebm import TwoLayerParameters, integrate, toa_imbalance
+    from sensemble.emulator.ebm import TwoLayerParameters, integrate, toa_imbalance
     p = TwoLayerParameters(1.2, 8.0, 100.0, 0.7)
     forcing = np.linspace(0, 5, 80)
     t, d = integrate(forcing, p)

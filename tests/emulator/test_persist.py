@@ -3,9 +3,9 @@ import netCDF4
 import numpy as np
 import pytest
 
-from emulator.errors import EmulatorInputError
-from emulator.gp import PathwayEmulator
-from emulator.persist import load_emulator, save_emulator
+from sensemble.emulator.errors import EmulatorInputError
+from sensemble.emulator.gp import PathwayEmulator
+from sensemble.emulator.persist import load_emulator, save_emulator
 
 from .test_gp import MEAN, step_ensemble
 

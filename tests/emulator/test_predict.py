@@ -4,9 +4,9 @@ import pandas as pd
 import pytest
 from scipy.stats import lognorm, norm
 
-from emulator.errors import EmulatorInputError
-from emulator.gp import PathwayEmulator
-from emulator.predict import (case_from_mapping, crossing_years, default_cases, grid_cases, lognormal_samples,
+from sensemble.emulator.errors import EmulatorInputError
+from sensemble.emulator.gp import PathwayEmulator
+from sensemble.emulator.predict import (case_from_mapping, crossing_years, default_cases, grid_cases, lognormal_samples,
                               parse_point, point_case, predict_cases)
 
 from .test_gp import MEAN, step_ensemble
@@ -103,7 +103,7 @@ def test_grid_parse_and_bad_cases(fitted):
 
 
 def test_parse_distribution_text():
-    from emulator.predict import parse_distribution
+    from sensemble.emulator.predict import parse_distribution
     spec = parse_distribution("ecs_eff=3.0:2.5-4.0")
     assert spec["median"] == 3.0 and spec["likely"] == [2.5, 4.0] and spec["input"] == "ecs_eff"
     assert parse_distribution("my_samples.csv") == {"samples_file": "my_samples.csv"}

@@ -4,10 +4,10 @@ import pandas as pd
 import pytest
 import xarray as xr
 
-from emulator.errors import EmulatorInputError
-from emulator.persist import load_emulator
-from emulator.run import emulate
-from emulator.settings import EmulatorSettings, PredictionSettings
+from sensemble.emulator.errors import EmulatorInputError
+from sensemble.emulator.persist import load_emulator
+from sensemble.emulator.run import emulate
+from sensemble.emulator.settings import EmulatorSettings, PredictionSettings
 
 from .synthetic import SCENARIO, scenario_forcing, write_extract_dir
 
@@ -116,7 +116,7 @@ def test_missing_scenario_is_reported(extract_dir, tmp_path):
 
 
 def test_format_summary_mentions_scores_and_outputs(result):
-    from emulator import format_summary
+    from sensemble.emulator import format_summary
     text = format_summary(result[0].summary)
     assert "RMSE" in text and "coverage" in text and str(result[1]) in text
 

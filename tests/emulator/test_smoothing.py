@@ -2,8 +2,8 @@
 import numpy as np
 import pytest
 
-from emulator.ebm import TwoLayerParameters, integrate
-from emulator.smoothing import forced_part, gaussian_smoother, response_smoother
+from sensemble.emulator.ebm import TwoLayerParameters, integrate
+from sensemble.emulator.smoothing import forced_part, gaussian_smoother, response_smoother
 
 from .synthetic import ar1, scenario_forcing
 

@@ -3,8 +3,8 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from emulator.errors import EmulatorInputError
-from emulator.training import available_scenarios, load_training_set
+from sensemble.emulator.errors import EmulatorInputError
+from sensemble.emulator.training import available_scenarios, load_training_set
 
 from .synthetic import SCENARIO, write_extract_dir, write_series
 

@@ -2,10 +2,10 @@
 import numpy as np
 import pytest
 
-from emulator.run import build_emulator, calibrate_runs
-from emulator.settings import EmulatorSettings
-from emulator.training import load_training_set
-from emulator.validate import END_YEARS, end_of_pathway, leave_one_model_out, validation_table
+from sensemble.emulator.run import build_emulator, calibrate_runs
+from sensemble.emulator.settings import EmulatorSettings
+from sensemble.emulator.training import load_training_set
+from sensemble.emulator.validate import END_YEARS, end_of_pathway, leave_one_model_out, validation_table
 
 from .synthetic import write_extract_dir
 

@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 import xarray as xr
 
-from extractor.annual import annual_means, month_lengths
+from sensemble.extractor.annual import annual_means, month_lengths
 
 CALENDARS = ["noleap", "360_day", "all_leap", "standard", "gregorian", "proleptic_gregorian", "julian"]
 # month lengths of the fixed-length calendars as the CF conventions define them (§4.4.1)

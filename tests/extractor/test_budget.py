@@ -3,7 +3,7 @@ import numpy as np
 import pytest
 import xarray as xr
 
-from extractor.budget import toa_budget
+from sensemble.extractor.budget import toa_budget
 
 
 def _fluxes(clear_sky=True, seed=0):

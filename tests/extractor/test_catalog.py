@@ -3,8 +3,8 @@ from pathlib import Path
 
 import pytest
 
-from extractor.catalog import parse_file_name, scan
-from extractor.settings import ExtractionSettings
+from sensemble.extractor.catalog import parse_file_name, scan
+from sensemble.extractor.settings import ExtractionSettings
 
 MODEL = "TESTMODEL-1"
 

@@ -6,8 +6,8 @@ import xarray as xr
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from extractor.budget import toa_budget
-from extractor.control import ControlError, branch_year, control_residuals, drift_corrected, join_chain
+from sensemble.extractor.budget import toa_budget
+from sensemble.extractor.control import ControlError, branch_year, control_residuals, drift_corrected, join_chain
 
 VARS = ("tas", "rsdt", "rsut", "rlut")
 UNITS = {"tas": "K", "rsdt": "W m-2", "rsut": "W m-2", "rlut": "W m-2"}

@@ -19,9 +19,9 @@ import pytest
 import xarray as xr
 from scipy import stats
 
-import demo_ensemble
-from extractor.pipeline import extract
-from extractor.settings import ExtractionSettings
+from sensemble import demo as demo_ensemble
+from sensemble.extractor.pipeline import extract
+from sensemble.extractor.settings import ExtractionSettings
 
 SEED = 0
 ABRUPT_YEARS = 60

@@ -3,9 +3,9 @@ import math
 
 import pytest
 
-from extractor.flags import join_flags, quality_flags
-from extractor.gregory import GregoryFit
-from extractor.settings import ExtractionSettings
+from sensemble.extractor.flags import join_flags, quality_flags
+from sensemble.extractor.gregory import GregoryFit
+from sensemble.extractor.settings import ExtractionSettings
 
 SETTINGS = ExtractionSettings()  # energy_leak 0.5 W m-2, poor_fit r² 0.5, ecs_max 20 K
 

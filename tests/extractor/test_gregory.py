@@ -7,8 +7,8 @@ import scipy.stats
 import statsmodels.api as sm
 import xarray as xr
 
-from extractor.budget import toa_budget
-from extractor.gregory import (
+from sensemble.extractor.budget import toa_budget
+from sensemble.extractor.gregory import (
     FitWindowError,
     bootstrap_ecs,
     component_feedbacks,

@@ -8,8 +8,8 @@ import pytest
 import xarray as xr
 from hypothesis import given, settings
 
-from extractor.errors import ArchiveError
-from extractor.means import EARTH_RADIUS_M, area_weights, global_mean
+from sensemble.extractor.errors import ArchiveError
+from sensemble.extractor.means import EARTH_RADIUS_M, area_weights, global_mean
 from tests.extractor.conftest import grid
 
 R = 6_371_000.0  # mean Earth radius, 6 371 km (handbook value)

@@ -21,12 +21,12 @@ import pytest
 import xarray as xr
 from hypothesis import HealthCheck, given, settings
 
-from extractor.budget import toa_budget
-from extractor.catalog import scan
-from extractor.control import drift_corrected
-from extractor.gregory import bootstrap_ecs, gregory_fit
-from extractor.means import area_weights, global_mean
-from extractor.runs import global_mean_series
+from sensemble.extractor.budget import toa_budget
+from sensemble.extractor.catalog import scan
+from sensemble.extractor.control import drift_corrected
+from sensemble.extractor.gregory import bootstrap_ecs, gregory_fit
+from sensemble.extractor.means import area_weights, global_mean
+from sensemble.extractor.runs import global_mean_series
 from tests.extractor.conftest import write_run
 
 FEW = settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])

@@ -5,10 +5,10 @@ import dask
 import numpy as np
 import pytest
 
-from extractor.annual import annual_means
-from extractor.catalog import RunFiles, scan
-from extractor.errors import ArchiveError
-from extractor.runs import global_mean_series, open_run
+from sensemble.extractor.annual import annual_means
+from sensemble.extractor.catalog import RunFiles, scan
+from sensemble.extractor.errors import ArchiveError
+from sensemble.extractor.runs import global_mean_series, open_run
 
 MODEL = "TESTMODEL-1"
 MEMBER = "r1i1p1f1"

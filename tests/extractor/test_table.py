@@ -4,7 +4,7 @@ import csv
 import numpy as np
 import xarray as xr
 
-from extractor.table import ALL_COLUMNS, COLUMNS, read_table, write_table
+from sensemble.extractor.table import ALL_COLUMNS, COLUMNS, read_table, write_table
 
 ROWS = [
     {"model": "ZED-2", "member": "r1i1p1f1", "erf_4x": 7.1, "feedback": -1.2, "ecs_eff": 2.9583333, "n_years": 150,

@@ -3,8 +3,8 @@ import numpy as np
 import pytest
 import xarray as xr
 
-from extractor.gregory import FitWindowError
-from extractor.transient import tcr
+from sensemble.extractor.gregory import FitWindowError
+from sensemble.extractor.transient import tcr
 
 
 def test_tcr_of_linear_warming_is_the_value_at_year_seventy_point_five():

@@ -15,8 +15,8 @@ import netCDF4
 import numpy as np
 import pytest
 
-from extractor.pipeline import extract
-from extractor.settings import ExtractionSettings
+from sensemble.extractor.pipeline import extract
+from sensemble.extractor.settings import ExtractionSettings
 from tests.extractor.conftest import write_monthly_file, write_run
 
 MODELS = ("BIRCH-2", "CEDAR-3")

@@ -14,9 +14,9 @@ import netCDF4
 import pytest
 import xarray as xr
 
-from extractor.errors import OutputInUseError
-from extractor.lock import LOCK_NAME, acquire, output_lock, release
-from extractor.table import ALL_COLUMNS, read_table
+from sensemble.extractor.errors import OutputInUseError
+from sensemble.extractor.lock import LOCK_NAME, acquire, output_lock, release
+from sensemble.extractor.table import ALL_COLUMNS, read_table
 from tests.faults.conftest import run_extract
 
 ROOT = Path(__file__).resolve().parents[2]

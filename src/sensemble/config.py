@@ -32,8 +32,8 @@ import typing
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from emulator.settings import EmulatorSettings, PredictionSettings
-from extractor.settings import ExtractionSettings
+from sensemble.emulator.settings import EmulatorSettings, PredictionSettings
+from sensemble.extractor.settings import ExtractionSettings
 from sensemble.compute import JOB_QUEUE_KINDS, KINDS, ComputeSettings
 
 
@@ -703,8 +703,8 @@ def dump_config(config: BatchConfig) -> str:
 def shipped_config(name: str) -> Path:
     """Path of a config shipped in the project's `configs/` folder, e.g. `shipped_config("demo")`."""
     here = Path(__file__).resolve().parent
-    # installed: sensemble/configs/ (package data); in a checkout: configs/ beside the package
-    candidates = [here / "configs" / f"{name}.toml", here.parent / "configs" / f"{name}.toml"]
+    # installed: sensemble/configs/ (package data); editable install or checkout: configs/ at the repository's top
+    candidates = [here / "configs" / f"{name}.toml", here.parents[1] / "configs" / f"{name}.toml"]
     path = next((p for p in candidates if p.is_file()), candidates[-1])
     if not path.is_file():
         raise ConfigError(f"{path}: no shipped config '{name}' (configs/ is not next to the installed package)")

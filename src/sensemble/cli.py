@@ -234,7 +234,7 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def _version() -> str:
-    from extractor import __version__
+    from sensemble import __version__
 
     return __version__
 
@@ -244,7 +244,7 @@ def _version() -> str:
 
 def _run_extract(archive, out, config, console: Console):
     """Extraction under the configured compute back-end; per-run table and failures reported."""
-    import extractor
+    from sensemble import extractor
 
     from .compute import open_compute
 
@@ -279,7 +279,7 @@ def _print_table(rows, say):
 
 
 def _run_emulate(source, out, config, console: Console):
-    from emulator import emulate, format_summary
+    from sensemble.emulator import emulate, format_summary
 
     prediction = config.prediction
     if not config.output.figures:
@@ -316,8 +316,8 @@ def _write_effective_config(config, out: Path, console: Console) -> None:
 
 
 def cmd_demo_archive(args, console: Console) -> int:
-    import demo_ensemble
-    from demo_ensemble.generate import _parse_years
+    from sensemble import demo as demo_ensemble
+    from sensemble.demo.generate import _parse_years
 
     kwargs = {"n_models": args.models, "seed": args.seed}
     if args.grid:
@@ -335,7 +335,7 @@ def cmd_demo_archive(args, console: Console) -> int:
 
 
 def cmd_demo(args, console: Console) -> int:
-    import demo_ensemble
+    from sensemble import demo as demo_ensemble
 
     from .config import load_config, merge_overrides, shipped_config
 
@@ -382,7 +382,7 @@ def cmd_extract(args, console: Console) -> int:
 
 def _cases(args) -> list[dict]:
     """One config-style case per --at (NAME=VALUE[,NAME=VALUE…]) and per --distribution."""
-    from emulator import parse_distribution, parse_point
+    from sensemble.emulator import parse_distribution, parse_point
 
     cases = []
     for text in args.at:
@@ -459,8 +459,8 @@ COMMANDS = {"demo": cmd_demo, "demo-archive": cmd_demo_archive, "extract": cmd_e
 
 def _usage_errors() -> tuple[type[BaseException], ...]:
     """Errors that mean "change the command or the config": exit status 2, one line."""
-    from emulator import EmulatorInputError
-    from extractor.errors import OutputInUseError
+    from sensemble.emulator import EmulatorInputError
+    from sensemble.extractor.errors import OutputInUseError
 
     from .compute import ComputeError
     from .config import ConfigError

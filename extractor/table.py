@@ -10,40 +10,9 @@ from pathlib import Path
 import numpy as np
 import xarray as xr
 
+from sensemble.contract.table import ALL_COLUMNS, COLUMN_META, COLUMNS, EXTRA_COLUMNS, NUMERIC, TEXT_META  # noqa: F401
+
 from .atomic import atomic_path, write_text
-
-# The contract's columns, in order (../shared/DESIGN.md), then our extras.
-COLUMNS = (
-    "model", "member", "erf_4x", "erf_4x_se", "feedback", "feedback_se", "ecs_eff", "ecs_eff_q05",
-    "ecs_eff_q95", "feedback_early", "feedback_late", "feedback_change", "ecs_late", "curvature", "tcr",
-    "n_years", "flags",
-)
-EXTRA_COLUMNS = ("feedback_lw_cs", "feedback_sw_cs", "feedback_cre", "erf_4x_odr", "feedback_odr", "ecs_eff_odr")
-ALL_COLUMNS = COLUMNS + EXTRA_COLUMNS
-
-COLUMN_META = {
-    "erf_4x": ("W m-2", "effective radiative forcing of CO2 quadrupling (Gregory intercept)"),
-    "erf_4x_se": ("W m-2", "standard error of erf_4x (OLS)"),
-    "feedback": ("W m-2 K-1", "climate feedback parameter (Gregory slope; negative is stable)"),
-    "feedback_se": ("W m-2 K-1", "standard error of feedback (OLS)"),
-    "ecs_eff": ("K", "effective climate sensitivity, -erf_4x / (forcing_ratio * feedback)"),
-    "ecs_eff_q05": ("K", "5th percentile of ecs_eff, moving-block bootstrap over years"),
-    "ecs_eff_q95": ("K", "95th percentile of ecs_eff, moving-block bootstrap over years"),
-    "feedback_early": ("W m-2 K-1", "feedback over the early segment"),
-    "feedback_late": ("W m-2 K-1", "feedback over the late segment"),
-    "feedback_change": ("W m-2 K-1", "feedback_late - feedback_early"),
-    "ecs_late": ("K", "effective climate sensitivity from the late segment"),
-    "curvature": ("W m-2 K-2", "quadratic coefficient a in dN = F + lambda dT + a dT^2"),
-    "tcr": ("K", "transient climate response: mean warming in years 61-80 of the 1 % per year CO2 run"),
-    "n_years": ("1", "number of annual means in the Gregory fit"),
-    "feedback_lw_cs": ("W m-2 K-1", "clear-sky longwave component of feedback"),
-    "feedback_sw_cs": ("W m-2 K-1", "clear-sky shortwave component of feedback"),
-    "feedback_cre": ("W m-2 K-1", "cloud radiative effect component of feedback"),
-    "erf_4x_odr": ("W m-2", "erf_4x from an orthogonal-distance (errors-in-variables) fit"),
-    "feedback_odr": ("W m-2 K-1", "feedback from an orthogonal-distance (errors-in-variables) fit"),
-    "ecs_eff_odr": ("K", "ecs_eff from an orthogonal-distance (errors-in-variables) fit"),
-}
-NUMERIC = tuple(c for c in ALL_COLUMNS if c not in ("model", "member", "flags"))
 
 
 def _cell(value) -> str:
@@ -74,8 +43,7 @@ def table_dataset(rows: list[dict], provenance: dict) -> xr.Dataset:
         values = np.array([np.nan if r.get(col) is None else float(r[col]) for r in rows], dtype=float)
         units, long_name = COLUMN_META[col]
         data[col] = ("run", values, {"units": units, "long_name": long_name})
-    for col, long_name in (("model", "source_id of the model"), ("member", "variant_label of the member"),
-                           ("flags", "quality flags, semicolon-separated")):
+    for col, long_name in TEXT_META.items():
         data[col] = ("run", np.array([str(r.get(col) or "") for r in rows], dtype=object), {"long_name": long_name})
     ds = xr.Dataset(data)
     ds.attrs = {

@@ -199,9 +199,9 @@ def open_compute(settings: ComputeSettings) -> Iterator[object | None]:
 
 def active_client():
     """The distributed client dask would compute on now, or None (a local scheduler)."""
-    from sensemble.extractor.pipeline import _distributed_client
+    from sensemble.extractor.schedule import distributed_client
 
-    return _distributed_client()
+    return distributed_client()
 
 
 def compute_batch(*collections, progress: bool = True):
@@ -211,6 +211,6 @@ def compute_batch(*collections, progress: bool = True):
     graph is submitted as futures and followed with distributed's terminal progress bar.
     Raises the first task's exception, like `dask.compute`. (The extractor's batch uses the same code.)
     """
-    from sensemble.extractor.pipeline import _compute_all
+    from sensemble.extractor.schedule import compute_all
 
-    return tuple(_compute_all(list(collections), progress))
+    return tuple(compute_all(list(collections), progress))

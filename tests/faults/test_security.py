@@ -10,7 +10,7 @@ from pathlib import Path
 import netCDF4
 import pytest
 
-from sensemble.extractor.pipeline import safe_name
+from sensemble.contract.names import safe_name
 from tests.faults.conftest import MODELS, MEMBER, rows_by_model, run_extract, set_attrs, write_model
 
 

@@ -1,0 +1,37 @@
+"""Series files: one NetCDF file per (model, member), one group per experiment of annual global-mean anomalies."""
+from __future__ import annotations
+
+from pathlib import Path
+
+import xarray as xr
+
+from .atomic import atomic_path
+
+SERIES_VARIABLES = ("tas", "rtnt", "rtnt_cs", "lw_cs", "sw_cs", "cre")
+
+
+def series_group(ds: xr.Dataset, role: str) -> xr.Dataset:
+    """A run's annual anomalies as a series-file group: the series variables, ``year`` from 1, the role."""
+    keep = [v for v in SERIES_VARIABLES if v in ds]
+    out = ds[keep].astype("float64")
+    for v in keep:
+        out[v].attrs = dict(ds[v].attrs)
+    out.attrs = {"role": role, "experiment_id": str(ds.attrs.get("experiment_id", "")),
+                 "branch_year_in_control": int(ds.attrs.get("branch_year", -1))}
+    if "chain" in ds.attrs:
+        out.attrs["chain"] = ds.attrs["chain"]
+    if "calendar_year" in ds.coords:
+        out = out.assign_coords(calendar_year=ds["calendar_year"].astype("int64"))
+    out["year"] = out["year"].astype("int64")
+    out["year"].attrs = {"long_name": "year counted from 1 at the branch from the control", "units": "1"}
+    return out
+
+
+def write_series(path: Path, groups: dict[str, xr.Dataset], attrs: dict) -> Path:
+    """One NetCDF file, one group per experiment, written atomically."""
+    with atomic_path(path) as tmp:
+        root = xr.Dataset(attrs=attrs)
+        root.to_netcdf(tmp, mode="w", engine="netcdf4")
+        for name, ds in groups.items():
+            ds.to_netcdf(tmp, mode="a", group=name, engine="netcdf4")
+    return path

@@ -1,0 +1,97 @@
+"""The sensitivity table: its columns in the contract's order, their units and long names, and a typed row."""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+# The contract's columns, in order (DESIGN.md, "Outputs of extraction"), then our extras.
+COLUMNS = (
+    "model", "member", "erf_4x", "erf_4x_se", "feedback", "feedback_se", "ecs_eff", "ecs_eff_q05",
+    "ecs_eff_q95", "feedback_early", "feedback_late", "feedback_change", "ecs_late", "curvature", "tcr",
+    "n_years", "flags",
+)
+EXTRA_COLUMNS = ("feedback_lw_cs", "feedback_sw_cs", "feedback_cre", "erf_4x_odr", "feedback_odr", "ecs_eff_odr")
+ALL_COLUMNS = COLUMNS + EXTRA_COLUMNS
+#: columns that hold text; every other column is a number (an empty cell when it could not be computed)
+TEXT_COLUMNS = ("model", "member", "flags")
+
+#: units and long names of the numeric columns
+COLUMN_META = {
+    "erf_4x": ("W m-2", "effective radiative forcing of CO2 quadrupling (Gregory intercept)"),
+    "erf_4x_se": ("W m-2", "standard error of erf_4x (OLS)"),
+    "feedback": ("W m-2 K-1", "climate feedback parameter (Gregory slope; negative is stable)"),
+    "feedback_se": ("W m-2 K-1", "standard error of feedback (OLS)"),
+    "ecs_eff": ("K", "effective climate sensitivity, -erf_4x / (forcing_ratio * feedback)"),
+    "ecs_eff_q05": ("K", "5th percentile of ecs_eff, moving-block bootstrap over years"),
+    "ecs_eff_q95": ("K", "95th percentile of ecs_eff, moving-block bootstrap over years"),
+    "feedback_early": ("W m-2 K-1", "feedback over the early segment"),
+    "feedback_late": ("W m-2 K-1", "feedback over the late segment"),
+    "feedback_change": ("W m-2 K-1", "feedback_late - feedback_early"),
+    "ecs_late": ("K", "effective climate sensitivity from the late segment"),
+    "curvature": ("W m-2 K-2", "quadratic coefficient a in dN = F + lambda dT + a dT^2"),
+    "tcr": ("K", "transient climate response: mean warming in years 61-80 of the 1 % per year CO2 run"),
+    "n_years": ("1", "number of annual means in the Gregory fit"),
+    "feedback_lw_cs": ("W m-2 K-1", "clear-sky longwave component of feedback"),
+    "feedback_sw_cs": ("W m-2 K-1", "clear-sky shortwave component of feedback"),
+    "feedback_cre": ("W m-2 K-1", "cloud radiative effect component of feedback"),
+    "erf_4x_odr": ("W m-2", "erf_4x from an orthogonal-distance (errors-in-variables) fit"),
+    "feedback_odr": ("W m-2 K-1", "feedback from an orthogonal-distance (errors-in-variables) fit"),
+    "ecs_eff_odr": ("K", "ecs_eff from an orthogonal-distance (errors-in-variables) fit"),
+}
+TEXT_META = {
+    "model": "source_id of the model",
+    "member": "variant_label of the member",
+    "flags": "quality flags, semicolon-separated",
+}
+NUMERIC = tuple(c for c in ALL_COLUMNS if c not in TEXT_COLUMNS)
+
+
+@dataclass
+class SensitivityRow:
+    """One row of the table: one (model, member). ``None`` means "could not be computed" (see ``flags``).
+
+    >>> row = SensitivityRow("ALDER-1", "r1i1p1f1", ecs_eff=3.2)
+    >>> row.as_dict()["ecs_eff"], tuple(row.as_dict()) == ALL_COLUMNS
+    (3.2, True)
+    """
+
+    model: str
+    member: str
+    erf_4x: float | None = None
+    erf_4x_se: float | None = None
+    feedback: float | None = None
+    feedback_se: float | None = None
+    ecs_eff: float | None = None
+    ecs_eff_q05: float | None = None
+    ecs_eff_q95: float | None = None
+    feedback_early: float | None = None
+    feedback_late: float | None = None
+    feedback_change: float | None = None
+    ecs_late: float | None = None
+    curvature: float | None = None
+    tcr: float | None = None
+    n_years: int | None = None
+    flags: str = ""
+    feedback_lw_cs: float | None = None
+    feedback_sw_cs: float | None = None
+    feedback_cre: float | None = None
+    erf_4x_odr: float | None = None
+    feedback_odr: float | None = None
+    ecs_eff_odr: float | None = None
+
+    def __post_init__(self):
+        # plain Python numbers (numpy scalars do not survive JSON), whole years as int
+        for name in NUMERIC:
+            value = getattr(self, name)
+            if value is not None:
+                setattr(self, name, int(value) if name == "n_years" else float(value))
+
+    def as_dict(self) -> dict:
+        """The row as ``{column: value}`` in the table's column order."""
+        return {name: getattr(self, name) for name in ALL_COLUMNS}
+
+    @classmethod
+    def from_dict(cls, row: dict) -> "SensitivityRow":
+        """A row from ``{column: value}``; unknown columns are an error (``TypeError``)."""
+        return cls(**{k: (None if isinstance(v, float) and math.isnan(v) else v) for k, v in row.items()})
+

@@ -2,6 +2,12 @@
 from __future__ import annotations
 
 from dataclasses import dataclass
+from numbers import Integral, Real
+
+from sensemble.contract.constraints import Elements, Interval, Options
+
+_POSITIVE_COUNT = [Interval(Integral, 0, None, closed="neither")]
+_SEED = [Interval(Integral, 0, None, closed="left")]
 
 
 @dataclass(frozen=True)
@@ -29,6 +35,19 @@ class EmulatorSettings:
     validate: bool = True  # leave-one-model-out validation (needs ≥ 4 models)
     validation_samples: int = 1000  # sampled pathways per held-out run for its end-of-pathway interval
 
+    # Allowed values, declared once (scikit-learn style); the config reader checks them before any file is read.
+    _parameter_constraints = {
+        "forcing_source": [Options("diagnosed", "co2", "file")],
+        "variance_kept": [Interval(Real, 0, 1, closed="right")],
+        "max_components": _POSITIVE_COUNT,
+        "kernel": [Options("matern52", "rbf")],
+        "smoothing": [Options("auto", "response", "gaussian", "none")],  # emulator/smoothing.py SMOOTHERS
+        "random_state": _SEED,
+        "n_restarts_optimizer": [Interval(Integral, 0, None, closed="left")],
+        "co2_reference": [Interval(Real, 0, None, closed="neither")],
+        "validation_samples": _POSITIVE_COUNT,
+    }
+
 
 @dataclass(frozen=True)
 class PredictionSettings:
@@ -46,3 +65,13 @@ class PredictionSettings:
     crossing_window: int = 20  # years of the running mean whose first exceedance dates a crossing
     figures: bool = True
     max_fan_figures: int = 24  # a fan figure per case, up to this many
+
+    # Allowed values, declared once; the config reader checks them before any file is read.
+    _parameter_constraints = {
+        "thresholds": [Elements(Interval(Real, 0, None, closed="neither"))],
+        "quantiles": [Elements(Interval(Real, 0, 1, closed="neither"))],
+        "n_samples": _POSITIVE_COUNT,
+        "random_state": _SEED,
+        "crossing_window": _POSITIVE_COUNT,
+        "max_fan_figures": [Interval(Integral, 0, None, closed="left")],
+    }

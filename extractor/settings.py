@@ -2,6 +2,17 @@
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from numbers import Integral, Real
+
+from sensemble.contract.constraints import Elements, Interval, Options, YearWindow
+
+#: Variables the sensitivity itself needs: ΔT, and N = rsdt − rsut − rlut (extractor/budget.py).
+SENSITIVITY_VARIABLES = ("tas", "rsdt", "rsut", "rlut")
+#: Every variable the extractor uses: the above, and the clear-sky fluxes of the feedback components.
+KNOWN_VARIABLES = SENSITIVITY_VARIABLES + ("rsutcs", "rlutcs")
+
+_POSITIVE_COUNT = [Interval(Integral, 0, None, closed="neither")]
+_POSITIVE = [Interval(Real, 0, None, closed="neither")]
 
 
 @dataclass(frozen=True)
@@ -20,8 +31,8 @@ class ExtractionSettings:
     scenarios: tuple[str, ...] | None = None
     include_models: tuple[str, ...] = ()
     exclude_models: tuple[str, ...] = ()
-    variables: tuple[str, ...] = ("tas", "rsdt", "rsut", "rlut", "rsutcs", "rlutcs")
-    required_variables: tuple[str, ...] = ("tas", "rsdt", "rsut", "rlut")
+    variables: tuple[str, ...] = KNOWN_VARIABLES
+    required_variables: tuple[str, ...] = SENSITIVITY_VARIABLES
 
     # fits (years count from 1 at the branch; both ends inclusive)
     fit_years: tuple[int, int] = (1, 150)
@@ -42,3 +53,23 @@ class ExtractionSettings:
     ecs_max: float = 20.0  # ecs_eff outside (0, ecs_max] → nonphysical
 
     extra: dict = field(default_factory=dict, compare=False, repr=False)
+
+    # Allowed values, declared once (scikit-learn style); the config reader checks them before any file is read.
+    # Rules that tie fields together (segments within fit_years, the variables N needs) are in sensemble.config.
+    _parameter_constraints = {
+        "variables": [Elements(Options(*KNOWN_VARIABLES))],
+        "required_variables": [Elements(Options(*KNOWN_VARIABLES))],
+        "fit_years": [YearWindow()],
+        "early_years": [YearWindow()],
+        "late_years": [YearWindow()],
+        "tcr_years": [YearWindow()],
+        "forcing_ratio": _POSITIVE,
+        "drift_order": [Options(1, 2)],
+        "min_control_years": _POSITIVE_COUNT,
+        "bootstrap_samples": _POSITIVE_COUNT,
+        "bootstrap_block": _POSITIVE_COUNT,
+        "seed": [Interval(Integral, 0, None, closed="left")],
+        "energy_leak_threshold": _POSITIVE,
+        "poor_fit_r2": [Interval(Real, 0, 1, closed="both")],
+        "ecs_max": _POSITIVE,
+    }

@@ -9,9 +9,12 @@ from __future__ import annotations
 import contextlib
 import os
 from dataclasses import dataclass, field
+from numbers import Integral
 from typing import Iterator
 
 import dask
+
+from sensemble.contract.constraints import Interval, MemorySize, Options, TimeLimit
 
 #: Values of `ComputeSettings.kind`.
 KINDS = ("threads", "processes", "address", "slurm", "pbs")
@@ -67,6 +70,18 @@ class ComputeSettings:
     local_directory: str | None = None
     log_directory: str | None = None
     interface: str | None = None
+
+    # Allowed values, declared once; the config reader checks them before anything starts.
+    _parameter_constraints = {
+        "kind": [Options(*KINDS)],
+        "workers": [Interval(Integral, 0, None, closed="neither")],
+        "threads_per_worker": [Interval(Integral, 0, None, closed="neither")],
+        "cores": [Interval(Integral, 0, None, closed="neither"), None],
+        "jobs": [Interval(Integral, 0, None, closed="neither")],
+        "memory": [MemorySize(), None],
+        "memory_limit": [MemorySize(), None],
+        "walltime": [TimeLimit(), None],
+    }
 
 
 def _job_queue_module(kind: str):

@@ -150,6 +150,28 @@ def test_extract_bad_usage(tiny, tmp_path):
     assert_usage_error(*run_cli("frobnicate"), "invalid choice: 'frobnicate'")
 
 
+def test_extract_refuses_required_variables_without_rsdt_before_reading(tiny, tmp_path):
+    # once an "unexpected error" (a KeyError) after a whole extraction: now refused at reading, nothing written
+    archive, _ = tiny
+    bad = tmp_path / "bad.toml"
+    bad.write_text('[archive]\nrequired_variables = ["tas", "rsut", "rlut"]\n')
+    assert_usage_error(*run_cli("extract", archive, "--out", tmp_path / "out", "--config", bad),
+                       "[archive] required_variables must include \"rsdt\"")
+    assert not (tmp_path / "out").exists()
+
+
+def test_emulate_refuses_a_bad_emulator_key_before_reading(tmp_path):
+    # the emulator's rules are checked with the rest of the config, before sensitivity.csv is opened
+    source = tmp_path / "extract"
+    source.mkdir()
+    (source / "sensitivity.csv").write_text("not a table\n")
+    bad = tmp_path / "bad.toml"
+    bad.write_text('[emulator]\nsmoothing = "gausian"\n')
+    assert_usage_error(*run_cli("emulate", "--from", source, "--out", tmp_path / "out", "--config", bad),
+                       '[emulator] smoothing must be one of', 'the closest valid value is "gaussian"')
+    assert not (tmp_path / "out").exists()
+
+
 def test_extract_into_a_folder_another_extraction_holds_exits_2(tiny, tmp_path):
     archive, config = tiny
     out = tmp_path / "out"

@@ -131,6 +131,52 @@ def test_ranges_and_cross_checks(tmp_path, text, words):
     assert words in error_of(tmp_path, text, check_paths=False)
 
 
+# --- fail fast: everything that needs no data is refused at reading, with the closest valid value -----------
+
+@pytest.mark.parametrize(
+    "text, words",
+    [
+        ('[archive]\nrequired_variables = ["tas", "rsut", "rlut"]\n',
+         '[archive] required_variables must include "rsdt" (the sensitivity needs tas, rsdt, rsut, rlut'),
+        ('[archive]\nrequired_variables = ["tas", "rsut", "rlut"]\n',
+         'the closest valid value is ["tas", "rsut", "rlut", "rsdt"]'),
+        ('[archive]\nvariables = ["tas", "rsdtt"]\n',
+         '[archive] variables must be one of "tas", "rsdt"'),
+        ('[archive]\nvariables = ["tas", "rsdtt"]\n', 'the closest valid value is ["tas", "rsdt"]'),
+        ('[emulator]\nsmoothing = "gausian"\n',
+         '[emulator] smoothing must be one of "auto", "response", "gaussian", "none", got "gausian"; '
+         'the closest valid value is "gaussian"'),
+        ('[emulator]\nkernel = "RBF"\n', 'the closest valid value is "rbf"'),
+        ("[emulator]\nvalidation_samples = 0\n",
+         "[emulator] validation_samples must be > 0, got 0; the closest valid value is 1"),
+        ("[emulator]\nn_restarts_optimizer = -3\n",
+         "[emulator] n_restarts_optimizer must be >= 0, got -3; the closest valid value is 0"),
+        ("[emulator]\nco2_reference = -278.0\n", "[emulator] co2_reference must be > 0, got -278.0"),
+        ("[prediction]\ncrossing_window = -5\n",
+         "[prediction] crossing_window must be > 0, got -5; the closest valid value is 1"),
+        ("[prediction]\nmax_fan_figures = -1\n", "[prediction] max_fan_figures must be >= 0, got -1"),
+        ("[extraction]\ndrift_order = 3\n", "the closest valid value is 2"),
+        ('[emulator]\ninputs = ["ecs_ef"]\n',
+         '[emulator] inputs names "ecs_ef", which is not a numeric column of the sensitivity table; '
+         'the closest valid value is "ecs_eff"'),
+        ('[prediction]\ngrid = { ecs_ef = [2.0, 3.0] }\n',
+         "[prediction] grid: 'ecs_ef' is not an emulator input; did you mean 'ecs_eff'?"),
+        ('[prediction]\ngrid = { ecs_eff = ["high"] }\n', "grid: ecs_eff must be a non-empty array of numbers"),
+    ],
+)
+def test_fail_fast_names_the_key_and_the_closest_valid_value(tmp_path, text, words):
+    assert words in error_of(tmp_path, text, check_paths=False)
+
+
+def test_every_declared_constraint_names_a_config_key():
+    # a rule declared beside a field that is not a key would never be checked
+    from sensemble.config.schema import TARGET_CLASSES, field_names
+
+    for cls in TARGET_CLASSES.values():
+        for name in getattr(cls, "_parameter_constraints", {}):
+            assert name in field_names(cls), f"{cls.__name__} declares a rule for {name}, which is not a field"
+
+
 def test_a_date_where_a_number_belongs(tmp_path):
     message = error_of(tmp_path, "[extraction]\nseed = 2026-12-02\n")
     assert "seed must be an integer, got 2026-12-02 (a date)" in message

@@ -10,7 +10,7 @@ import importlib
 _EXPORTS = {
     "emulate": "run", "EmulationResult": "run", "format_summary": "run",
     "EmulatorSettings": "settings", "PredictionSettings": "settings",
-    "PathwayEmulator": "gp", "load_training_set": "training", "calibrate_two_layer": "calibrate",
+    "PathwayEmulator": "gp", "EnsembleEmulator": "ensemble", "load_training_set": "training", "calibrate_two_layer": "calibrate",
     "save_emulator": "persist", "load_emulator": "persist", "EmulatorInputError": "errors",
     "parse_point": "predict", "parse_distribution": "predict",
 }

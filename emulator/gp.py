@@ -27,7 +27,6 @@ from __future__ import annotations
 import os
 import warnings
 from concurrent.futures import ThreadPoolExecutor
-from dataclasses import dataclass
 
 import numpy as np
 from scipy.linalg import cho_solve
@@ -38,15 +37,13 @@ from sklearn.gaussian_process import GaussianProcessRegressor
 from sklearn.gaussian_process.kernels import RBF, ConstantKernel, Matern, WhiteKernel
 from threadpoolctl import threadpool_limits  # installed with scikit-learn
 
-from .ebm import TwoLayerParameters, integrate
 from .errors import EmulatorInputError
+from .physics_mean import MEAN_PARAMETERS, PhysicsMean
 from .smoothing import SMOOTHERS, forced_part
+from .variability import ar1_noise
 
-__all__ = ["PathwayEmulator", "PhysicsMean", "make_kernel", "internal_variability_from_control", "MEAN_PARAMETERS",
-           "small_sample_factor"]
+__all__ = ["PathwayEmulator", "make_kernel", "small_sample_factor", "KERNELS"]
 
-#: Keys of `mean_params`: the ensemble-typical two-layer parameters of the physics mean.
-MEAN_PARAMETERS = ("f2x", "heat_capacity", "deep_heat_capacity", "exchange", "efficacy")
 KERNELS = ("matern52", "rbf")
 #: Length scales on standardised inputs. The floor sits just above the typical spacing of neighbouring models
 #: (≈ 3.5 sd / (n − 1) ≈ 0.3–0.5 sd for 8–13 models): shorter scales let a GP thread each model's own
@@ -70,70 +67,6 @@ def small_sample_factor(n: int) -> float:
     """Variance factor widening a Student-t with n − 1 degrees of freedom to the Gaussian with the same
     central 90 % interval: (t_0.95,n−1 / z_0.95)² (scipy.stats quantiles)."""
     return float((student_t.ppf(0.95, int(n) - 1) / norm.ppf(0.95)) ** 2)
-
-
-def internal_variability_from_control(series) -> tuple[float, float]:
-    """(sd, lag-1 autocorrelation) of annual control residuals, pooled over runs (AR(1); common practice).
-
-    The variance is the mean of the runs' variances; the autocorrelation the mean of theirs, kept in [0, 0.95].
-    """
-    variances, lags = [], []
-    for s in series:
-        if s is None:
-            continue
-        s = np.asarray(s, float)
-        s = s[np.isfinite(s)] - np.nanmean(s)
-        if len(s) < 10:
-            continue
-        variances.append(s.var(ddof=1))
-        lags.append(np.sum(s[1:] * s[:-1]) / np.sum(s * s))
-    if not variances:
-        raise EmulatorInputError("no control series of at least 10 years for the internal variability")
-    return float(np.sqrt(np.mean(variances))), float(np.clip(np.mean(lags), 0.0, 0.95))
-
-
-@dataclass(frozen=True)
-class PhysicsMean:
-    """Two-layer response to `forcing` at λ = f2x / ECS (ECS = column `ecs_index` of X); zero if `forcing` is None."""
-
-    n_years: int
-    forcing: np.ndarray | None = None
-    f2x: float = np.nan
-    heat_capacity: float = np.nan
-    deep_heat_capacity: float = np.nan
-    exchange: float = np.nan
-    efficacy: float = 1.0
-    ecs_index: int = 0
-
-    #: above this many distinct ECS values the response is computed on a grid and interpolated
-    exact_limit = 4096
-    grid_points = 16385
-
-    def __call__(self, X) -> np.ndarray:
-        X = np.atleast_2d(np.asarray(X, float))
-        if self.forcing is None:
-            return np.zeros((X.shape[0], self.n_years))
-        ecs = X[:, self.ecs_index]
-        unique, index = np.unique(ecs, return_inverse=True)
-        if len(unique) <= self.exact_limit:
-            return self.response(unique)[index.reshape(-1)]
-        # The mean depends on ECS alone and smoothly: exact on a dense grid in ln ECS, then linear
-        # interpolation (error below 1e-8 K, tested) — what makes 10⁵ distinct inputs affordable.
-        lo, hi = np.log(unique[0]), np.log(unique[-1])
-        grid = np.linspace(lo, hi, self.grid_points)
-        values = self.response(np.exp(grid))
-        position = (np.log(ecs) - lo) / (grid[1] - grid[0])
-        left = np.clip(position.astype(int), 0, self.grid_points - 2)
-        weight = (position - left)[:, None]
-        out = values[left + 1] * weight
-        out += values[left] * (1.0 - weight)
-        return out
-
-    def response(self, ecs) -> np.ndarray:
-        """Exact two-layer response (n, n_years) at the given ECS values."""
-        params = TwoLayerParameters(self.f2x / np.asarray(ecs, float), self.heat_capacity, self.deep_heat_capacity,
-                                    self.exchange, self.efficacy)
-        return integrate(self.forcing, params)[0]
 
 
 class PathwayEmulator(BaseEstimator):
@@ -460,20 +393,3 @@ class PathwayEmulator(BaseEstimator):
         if self.internal_variability_ is not None and self.internal_variability_[0] > 0:
             out += ar1_noise(rng, shape + (n_years,), *self.internal_variability_)
         return out
-
-
-def ar1_noise(rng, shape, sd, phi, dtype=np.float32):
-    """Stationary AR(1) noise along the last axis with marginal sd `sd` and lag-1 autocorrelation `phi`.
-
-    x_0 ~ N(0, sd²), x_t = φ x_{t−1} + e_t with var e_t = sd²(1 − φ²). Drawn year-major in single precision
-    (seven significant digits are far finer than the noise itself) and returned as a view with years last:
-    drawing normals dominates the cost of sampling 10⁵ pathways.
-    """
-    shape = tuple(shape)
-    noise = rng.standard_normal((shape[-1],) + shape[:-1], dtype=dtype)
-    noise[0] *= dtype(sd)
-    noise[1:] *= dtype(sd * np.sqrt(1.0 - phi * phi))
-    phi = dtype(phi)
-    for k in range(1, shape[-1]):
-        noise[k] += phi * noise[k - 1]
-    return np.moveaxis(noise, 0, -1)

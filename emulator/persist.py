@@ -17,7 +17,8 @@ import xarray as xr
 
 from .atomic import atomic_path
 from .errors import EmulatorInputError
-from .gp import PathwayEmulator, PhysicsMean, make_kernel
+from .gp import PathwayEmulator, make_kernel
+from .physics_mean import PhysicsMean
 
 __all__ = ["save_emulator", "load_emulator", "FORMAT", "FORMAT_VERSION"]
 

@@ -15,22 +15,15 @@ import numpy as np
 import pandas as pd
 
 from .atomic import atomic_path, write_csv
-from .calibrate import calibrate_two_layer
+from .ensemble import EnsembleEmulator
 from .errors import EmulatorInputError
-from .forcing import align_forcing, co2_forcing, diagnose_forcing, read_forcing_file
-from .gp import PathwayEmulator, internal_variability_from_control
 from .persist import save_emulator
 from .predict import case_from_mapping, default_cases, grid_cases, predict_cases
 from .settings import EmulatorSettings, PredictionSettings
 from .training import TrainingSet, load_training_set
 from .validate import END_YEARS, leave_one_model_out, validation_table
 
-__all__ = ["emulate", "EmulationResult", "calibrate_runs", "build_emulator", "format_summary"]
-
-FORCING_RATIO = 2.0  # erf_4x / F2x, as in the sensitivity table's ecs_eff = -erf_4x / (2 feedback)
-CALIBRATION_COLUMNS = ["model", "member", "lambda_", "heat_capacity", "deep_heat_capacity", "exchange", "efficacy",
-                       "forcing_4x", "status"]
-
+__all__ = ["emulate", "EmulationResult", "format_summary"]
 
 @dataclass
 class EmulationResult:
@@ -40,110 +33,10 @@ class EmulationResult:
     files: list[Path]
     validation: pd.DataFrame | None = None
     prediction: object = None
-    emulator: PathwayEmulator | None = None
+    emulator: EnsembleEmulator | None = None
     training: TrainingSet | None = None
     calibration: pd.DataFrame | None = None
     notes: list[str] = field(default_factory=list)
-
-
-def calibrate_runs(ts: TrainingSet, efficacy: bool = False) -> pd.DataFrame:
-    """Two-layer parameters per run from its abrupt series; a run that cannot be calibrated gets a status, not a guess."""
-    rows = []
-    for i in range(ts.n_runs):
-        row = dict(model=ts.models[i], member=ts.members[i])
-        tas, rtnt = ts.abrupt_tas[i], ts.abrupt_rtnt[i]
-        if tas is None:
-            rows.append({**row, "status": "no abrupt run"})
-            continue
-        try:
-            params, f4x = calibrate_two_layer(tas, rtnt, efficacy=efficacy)
-        except EmulatorInputError as exc:
-            rows.append({**row, "status": f"calibration failed: {exc}"})
-            continue
-        rows.append({**row, **{k: float(v) for k, v in asdict(params).items()}, "forcing_4x": f4x, "status": "ok"})
-    return pd.DataFrame(rows, columns=CALIBRATION_COLUMNS)
-
-
-def _mean_parameters(calibration: pd.DataFrame) -> dict:
-    ok = calibration[calibration["status"] == "ok"]
-    if ok.empty:
-        raise EmulatorInputError("no run could be calibrated, so the physics mean has no heat capacities",
-                                 hint="check the abrupt runs, or set physics_mean = false")
-    return {
-        "f2x": float(ok["forcing_4x"].median() / FORCING_RATIO),
-        "heat_capacity": float(ok["heat_capacity"].median()),
-        "deep_heat_capacity": float(ok["deep_heat_capacity"].median()),
-        "exchange": float(ok["exchange"].median()),
-        "efficacy": float(ok["efficacy"].median()),
-        "n_calibrated": int(len(ok)),
-    }
-
-
-def _scenario_forcing(ts: TrainingSet, settings: EmulatorSettings, calibration: pd.DataFrame, f2x: float):
-    source = settings.forcing_source
-    if source == "diagnosed":
-        lam = -ts.table["feedback"].to_numpy(float) if "feedback" in ts.table else np.full(ts.n_runs, np.nan)
-        lam_cal = calibration.set_index(["model", "member"])["lambda_"]
-        fallback = np.array([lam_cal.get((m, r), np.nan) for m, r in zip(ts.models, ts.members)], float)
-        lam = np.where(np.isfinite(lam) & (lam > 0), lam, fallback)
-        usable = np.isfinite(lam) & (lam > 0)
-        if not usable.any():
-            raise EmulatorInputError("no run has a feedback parameter to diagnose the forcing with")
-        f = diagnose_forcing(ts.Y[usable], ts.scenario_rtnt[usable], lam[usable], groups=ts.models[usable])
-        return f.values, f"diagnosed from {int(f.attrs['n_models'])} models (F = N + λT)"
-    if source == "file":
-        if not settings.forcing_file:
-            raise EmulatorInputError("forcing_source = 'file' needs forcing_file")
-        values, how = align_forcing(read_forcing_file(settings.forcing_file), ts.years, ts.calendar_years)
-        return values, f"file {settings.forcing_file} (matched on {how})"
-    if source == "co2":
-        if not settings.co2_file:
-            raise EmulatorInputError("forcing_source = 'co2' needs co2_file")
-        conc, how = align_forcing(read_forcing_file(settings.co2_file), ts.years, ts.calendar_years)
-        return co2_forcing(conc, settings.co2_reference, f2x=f2x), f"CO2 file {settings.co2_file} (5.35 ln C/C0, rescaled to F2x)"
-    raise EmulatorInputError(f"unknown forcing_source {source!r}", hint="use diagnosed, co2 or file")
-
-
-def per_model(ts: TrainingSet) -> tuple[np.ndarray, np.ndarray]:
-    """(X, Y) with one row per model (in order of first appearance): the means over its members."""
-    models = list(dict.fromkeys(ts.models))
-    X = np.array([ts.X[ts.models == m].mean(axis=0) for m in models])
-    Y = np.array([ts.Y[ts.models == m].mean(axis=0) for m in models])
-    return X, Y
-
-
-def build_emulator(ts: TrainingSet, settings: EmulatorSettings, calibration: pd.DataFrame):
-    """Everything learned from a training set: mean parameters, forcing, internal variability, the fit.
-
-    The GP is fitted to one point per model: the members of a model are averaged (inputs and pathways). They
-    differ only by internal variability, which the emulator adds separately; as separate points they would
-    look like exact repeats and shrink the fitted model-to-model (structural) scatter, and the small-sample
-    variance would count runs rather than models (one model, one vote: common practice in multi-model work).
-
-    Returns (fitted emulator, details dict). Used for the final fit and for every validation fold.
-    """
-    keep = pd.MultiIndex.from_arrays([ts.models, ts.members])
-    cal = calibration.set_index(["model", "member"]).loc[keep].reset_index()
-    details = {}
-    forcing = mean_params = None
-    if settings.physics_mean:
-        mean_params = _mean_parameters(cal)
-        forcing, details["forcing_source"] = _scenario_forcing(ts, settings, cal, mean_params["f2x"])
-        details["mean_parameters"] = mean_params
-    iv = None
-    if settings.internal_variability:
-        try:
-            iv = internal_variability_from_control(ts.control_tas)
-        except EmulatorInputError as exc:
-            details["internal_variability_note"] = str(exc)
-    details["internal_variability"] = iv
-    emulator = PathwayEmulator(
-        inputs=tuple(settings.inputs), physics_mean=settings.physics_mean, variance_kept=settings.variance_kept,
-        max_components=settings.max_components, kernel=settings.kernel, internal_variability=iv,
-        smoothing=settings.smoothing, small_sample_correction=settings.small_sample_correction,
-        n_restarts_optimizer=settings.n_restarts_optimizer, random_state=settings.random_state,
-    ).fit(*per_model(ts), forcing=forcing, mean_params=mean_params)
-    return emulator, details
 
 
 def _cases(prediction: PredictionSettings, ts: TrainingSet, rng):
@@ -197,8 +90,12 @@ def emulate(extract_dir, out_dir, settings: EmulatorSettings = EmulatorSettings(
     n_models = len(set(ts.models))
     say(f"scenario {ts.scenario}: {ts.n_runs} runs of {n_models} models, {len(ts.years)} years"
         + (f"; {len(ts.skipped)} runs skipped" if len(ts.skipped) else ""))
-    say("calibrating the two-layer model per run")
-    calibration = calibrate_runs(ts, efficacy=settings.efficacy)
+    say("calibrating the two-layer model per run and fitting the emulator")
+    emulator = EnsembleEmulator.from_settings(settings).fit(ts)
+    calibration = emulator.calibration_
+    details = {"forcing_source": emulator.forcing_source_, "mean_parameters": emulator.mean_parameters_,
+               "internal_variability": emulator.internal_variability_,
+               **{f"fit_{i}_note": note for i, note in enumerate(emulator.notes_)}}
     files.append(write_csv(calibration, out_dir / "calibration.csv"))
     runs = pd.concat([
         pd.DataFrame({"model": ts.models, "member": ts.members,
@@ -207,15 +104,11 @@ def emulate(extract_dir, out_dir, settings: EmulatorSettings = EmulatorSettings(
     ], ignore_index=True)
     files.append(write_csv(runs, out_dir / "training_runs.csv"))
 
-    say("fitting the emulator")
-    emulator, details = build_emulator(ts, settings, calibration)
-
     validation_summary, per_run = None, None
     if settings.validate:
         if n_models >= 4:
             per_run, validation_summary = leave_one_model_out(
-                ts, lambda sub: build_emulator(sub, settings, calibration)[0],
-                n_samples=settings.validation_samples, random_state=settings.random_state, progress=say)
+                ts, emulator, n_samples=settings.validation_samples, random_state=settings.random_state, progress=say)
             files.append(write_csv(validation_table(per_run, validation_summary), out_dir / "validation.csv"))
         else:
             details["validation_note"] = f"validation skipped: {n_models} models, at least 4 needed"
@@ -239,7 +132,7 @@ def emulate(extract_dir, out_dir, settings: EmulatorSettings = EmulatorSettings(
         "mean_parameters": details.get("mean_parameters"), "forcing_source": details.get("forcing_source"),
         "skipped": ts.skipped.to_dict(orient="records"),
     }
-    files.append(save_emulator(emulator, out_dir / "emulator.nc", metadata))
+    files.append(save_emulator(emulator.emulator_, out_dir / "emulator.nc", metadata))
 
     if prediction.figures:
         from .figures import fan_figure, safe_name, validation_figure  # matplotlib only when figures are wanted
@@ -258,8 +151,8 @@ def emulate(extract_dir, out_dir, settings: EmulatorSettings = EmulatorSettings(
         "n_models": n_models,
         "skipped_runs": [f"{r.model} {r.member}: {r.reason}" for r in ts.skipped.itertuples()],
         "calibration_failures": [f"{r.model} {r.member}: {r.status}" for r in calibration.itertuples() if r.status != "ok"],
-        "n_components": int(emulator.n_components_),
-        "variance_explained": float(np.sum(emulator.explained_variance_ratio_)),
+        "n_components": int(emulator.emulator_.n_components_),
+        "variance_explained": float(np.sum(emulator.emulator_.explained_variance_ratio_)),
         "forcing": details.get("forcing_source", "none (physics mean off)"),
         "mean_parameters": details.get("mean_parameters"),
         "internal_variability": details.get("internal_variability"),
@@ -267,8 +160,8 @@ def emulate(extract_dir, out_dir, settings: EmulatorSettings = EmulatorSettings(
         "end_spread": _end_spread(emulator, ts),
         "validation": validation_summary,
         "notes": [v for k, v in details.items() if k.endswith("_note")] + (
-            [f"{len(emulator.fit_warnings_)} GP hyperparameter(s) ended at a search bound (usually a component the "
-             "inputs do not explain, fitted as noise)"] if emulator.fit_warnings_ else []),
+            [f"{len(emulator.emulator_.fit_warnings_)} GP hyperparameter(s) ended at a search bound (usually a component "
+             "the inputs do not explain, fitted as noise)"] if emulator.emulator_.fit_warnings_ else []),
         "n_cases": len(cases),
         "out_dir": str(out_dir),
         "files": [str(f) for f in files],
@@ -278,7 +171,7 @@ def emulate(extract_dir, out_dir, settings: EmulatorSettings = EmulatorSettings(
                            result, emulator, ts, calibration)
 
 
-def _end_spread(emulator: PathwayEmulator, ts: TrainingSet) -> dict:
+def _end_spread(emulator: EnsembleEmulator, ts: TrainingSet) -> dict:
     """Where the spread of the end-of-pathway warming comes from, at the training inputs' median."""
     x = np.median(ts.X, axis=0)
     forced, internal = emulator.spread_of_mean(x[None, :], END_YEARS)

@@ -8,11 +8,14 @@ member alone would flatter the emulator). For each held-out run:
 - the held-out pathway is a single realisation, so it is judged against the emulator's spread for one
   realisation (forced-response uncertainty + internal variability; `PathwayEmulator.prediction_target_`);
 - RMSE and bias over the whole pathway; per-year coverage of the Gaussian 90 % interval;
-- standardized error z = (actual − predicted) / predictive sd of the end-of-pathway warming.
+- error = predicted − actual, and the standardized error z = (predicted − actual) / predictive sd of the
+  end-of-pathway warming: the same sign, so the ensemble's bias and mean z agree in sign.
 """
 from __future__ import annotations
 
 from typing import Callable
+
+from sklearn.base import clone
 
 import numpy as np
 import pandas as pd
@@ -32,12 +35,12 @@ def end_of_pathway(paths, n_years: int = END_YEARS):
     return np.asarray(paths)[..., -n_years:].mean(axis=-1)
 
 
-def leave_one_model_out(ts: TrainingSet, build: Callable, n_samples: int = 1000, random_state=0,
+def leave_one_model_out(ts: TrainingSet, estimator, n_samples: int = 1000, random_state=0,
                         progress: Callable[[str], None] | None = None) -> tuple[pd.DataFrame, dict]:
-    """Hold out each model in turn, rebuild the emulator on the rest with `build(training_subset)`.
+    """Hold out each model in turn and fit `clone(estimator)` to the rest (an `EnsembleEmulator`, fitted or not).
 
-    Returns (per-run DataFrame, summary dict). `build` must do everything that learns from data (calibration,
-    forcing diagnosis, fit), so nothing of the held-out model leaks into its prediction.
+    Returns (per-run DataFrame, summary dict). The estimator's `fit` does everything that learns from data
+    (calibration, forcing diagnosis, GP), so nothing of the held-out model leaks into its prediction.
     """
     models = list(dict.fromkeys(ts.models))
     if len(models) < 4:
@@ -48,7 +51,7 @@ def leave_one_model_out(ts: TrainingSet, build: Callable, n_samples: int = 1000,
         if progress:
             progress(f"validation {i + 1}/{len(models)}: holding out {model}")
         held = ts.models == model
-        emulator = build(ts.subset(~held))
+        emulator = clone(estimator).fit(ts.subset(~held))
         test = ts.subset(held)
         mean, sd = emulator.predict(test.X, return_std=True)
         samples = emulator.sample_paths(test.X, n_samples, random_state=rng)
@@ -66,7 +69,7 @@ def leave_one_model_out(ts: TrainingSet, build: Callable, n_samples: int = 1000,
                 "end_actual": actual_end[r], "end_predicted": pred_end[r], "end_sd": sd_end,
                 "end_q05": q05, "end_q95": q95, "end_error": pred_end[r] - actual_end[r],
                 "end_covered90": bool(q05 <= actual_end[r] <= q95),
-                "end_z": (actual_end[r] - pred_end[r]) / sd_end,
+                "end_z": (pred_end[r] - actual_end[r]) / sd_end,
                 "pathway_rmse": float(np.sqrt(np.mean(err ** 2))),
                 "pathway_bias": float(-np.mean(err)),
                 "pathway_coverage90": float(np.mean(np.abs(err) <= Z90 * sd[r])),
@@ -89,7 +92,8 @@ def leave_one_model_out(ts: TrainingSet, build: Callable, n_samples: int = 1000,
 
 def validation_table(per_run: pd.DataFrame, summary: dict) -> pd.DataFrame:
     """`validation.csv`: one row per held-out run, then a row `model = ALL` with the ensemble scores
-    (end_error → bias, end_rmse, coverage as fractions, end_z → mean standardized error, rms_z)."""
+    (end_error → bias, end_rmse, coverage as fractions, end_z → mean standardized error, rms_z); errors and z
+    are both predicted − actual."""
     table = per_run.copy()
     table["end_rmse"] = table["end_error"].abs()
     table["rms_z"] = table["end_z"].abs()

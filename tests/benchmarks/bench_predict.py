@@ -16,7 +16,8 @@ import time
 import numpy as np
 
 from sensemble.emulator.ebm import TwoLayerParameters, integrate
-from sensemble.emulator.gp import PathwayEmulator, ar1_noise
+from sensemble.emulator.gp import PathwayEmulator
+from sensemble.emulator.variability import ar1_noise
 from sensemble.emulator.predict import crossing_years, lognormal_samples
 
 N_YEARS = 250

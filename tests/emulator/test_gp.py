@@ -6,7 +6,8 @@ from sklearn.gaussian_process.kernels import ConstantKernel, Matern, WhiteKernel
 
 from sensemble.emulator.ebm import TwoLayerParameters, integrate
 from sensemble.emulator.errors import EmulatorInputError
-from sensemble.emulator.gp import PathwayEmulator, ar1_noise, internal_variability_from_control
+from sensemble.emulator.gp import PathwayEmulator
+from sensemble.emulator.variability import ar1_noise, internal_variability_from_control
 
 from .synthetic import ar1
 
@@ -190,7 +191,7 @@ def test_rbf_kernel_and_physics_off_fit():
 def test_gridded_physics_mean_matches_exact_response():
     # Above PhysicsMean.exact_limit distinct inputs the mean is interpolated from a dense ln-ECS grid;
     # against the exact two-layer response it must agree to 1e-8 K (our own accuracy claim, no outside source).
-    from sensemble.emulator.gp import PhysicsMean
+    from sensemble.emulator.physics_mean import PhysicsMean
     mean = PhysicsMean(60, np.linspace(0.0, 5.0, 60), **MEAN)
     ecs = np.exp(np.random.default_rng(0).uniform(np.log(1.5), np.log(6.0), PhysicsMean.exact_limit + 500))
     np.testing.assert_allclose(mean(ecs[:, None]), mean.response(ecs), atol=1e-8, rtol=0)

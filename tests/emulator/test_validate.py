@@ -2,7 +2,7 @@
 import numpy as np
 import pytest
 
-from sensemble.emulator.run import build_emulator, calibrate_runs
+from sensemble.emulator.ensemble import EnsembleEmulator
 from sensemble.emulator.settings import EmulatorSettings
 from sensemble.emulator.training import load_training_set
 from sensemble.emulator.validate import END_YEARS, end_of_pathway, leave_one_model_out, validation_table
@@ -18,10 +18,8 @@ def smooth_ensemble(tmp_path_factory):
     path = tmp_path_factory.mktemp("smooth")
     write_extract_dir(path, n_models=12, n_years=100, seed=3, members={0: 2}, fixed_capacities=True)
     ts = load_training_set(path)
-    settings = EmulatorSettings(max_components=4, n_restarts_optimizer=0)
-    calibration = calibrate_runs(ts)
-    per_run, summary = leave_one_model_out(ts, lambda sub: build_emulator(sub, settings, calibration)[0],
-                                           n_samples=400, random_state=0)
+    estimator = EnsembleEmulator.from_settings(EmulatorSettings(max_components=4, n_restarts_optimizer=0))
+    per_run, summary = leave_one_model_out(ts, estimator, n_samples=400, random_state=0)
     return ts, per_run, summary
 
 

@@ -14,6 +14,7 @@ from pathlib import Path
 from typing import Callable
 
 from sensemble import __version__
+from sensemble.contract.cf import CONVENTIONS, history_line
 from sensemble.contract.names import safe_name
 
 from .cache import cached_row, file_stats, fingerprint, settings_record
@@ -150,7 +151,7 @@ def _extract_locked(archive, out_dir: Path, settings: ExtractionSettings, *, for
 
     provenance = {
         "software_version": __version__,
-        "history": f"{time.strftime('%Y-%m-%dT%H:%M:%SZ', time.gmtime())} sensemble extract {archive}",
+        "history": history_line(f"sensemble extract {archive}"),
         "config": settings_record(settings),
         "input_files": sorted(f"{path} size={st.st_size} mtime={int(st.st_mtime)}" for path, st in stats.items()),
     }
@@ -170,7 +171,8 @@ def _finish_unit(unit: Unit, series: dict, settings: ExtractionSettings, out_dir
     science = unit_science(unit, series, settings)
     row = science.row.as_dict()
     attrs = {
-        "Conventions": "CF-1.10",
+        "Conventions": CONVENTIONS,
+        "history": history_line(f"sensemble extract: series of {unit.model} {unit.member}"),
         "title": f"Annual global-mean anomalies of {unit.model} {unit.member}, drift-corrected against the control",
         "source": f"sensemble {__version__}",
         "model": unit.model,

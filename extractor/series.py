@@ -5,6 +5,8 @@ from pathlib import Path
 
 import xarray as xr
 
+from sensemble.contract.cf import anomaly_attributes
+
 from .atomic import atomic_path
 
 SERIES_VARIABLES = ("tas", "rtnt", "rtnt_cs", "lw_cs", "sw_cs", "cre")
@@ -14,8 +16,12 @@ def series_group(ds: xr.Dataset, role: str) -> xr.Dataset:
     """A run's annual anomalies as a series-file group: the series variables, ``year`` from 1, the role."""
     keep = [v for v in SERIES_VARIABLES if v in ds]
     out = ds[keep].astype("float64")
+    what = ("annual global mean, drift-removed residual of the control" if role == "control" else
+            "annual global-mean anomaly, drift-corrected against the control")
     for v in keep:
-        out[v].attrs = dict(ds[v].attrs)
+        # each value is an area mean over the globe and a mean over its year (CF §7.3 names the group's own
+        # dimension; the monthly `time` of the archive is gone)
+        out[v].attrs = anomaly_attributes(ds[v].attrs, what) | {"cell_methods": "area: mean year: mean"}
     out.attrs = {"role": role, "experiment_id": str(ds.attrs.get("experiment_id", "")),
                  "branch_year_in_control": int(ds.attrs.get("branch_year", -1))}
     if "chain" in ds.attrs:

@@ -10,6 +10,7 @@ from pathlib import Path
 import numpy as np
 import xarray as xr
 
+from sensemble.contract.cf import CONVENTIONS
 from sensemble.contract.table import ALL_COLUMNS, COLUMN_META, COLUMNS, EXTRA_COLUMNS, NUMERIC, TEXT_META  # noqa: F401
 
 from .atomic import atomic_path, write_text
@@ -47,7 +48,7 @@ def table_dataset(rows: list[dict], provenance: dict) -> xr.Dataset:
         data[col] = ("run", np.array([str(r.get(col) or "") for r in rows], dtype=object), {"long_name": long_name})
     ds = xr.Dataset(data)
     ds.attrs = {
-        "Conventions": "CF-1.10",
+        "Conventions": CONVENTIONS,
         "title": "Climate sensitivity from Gregory regression, per model and member",
         "source": f"sensemble {provenance.get('software_version', '')}",
         "history": provenance.get("history", ""),

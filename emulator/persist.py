@@ -15,6 +15,8 @@ from pathlib import Path
 import numpy as np
 import xarray as xr
 
+from sensemble.contract.cf import CONVENTIONS, TEMPERATURE_DIFFERENCE, history_line
+
 from .atomic import atomic_path
 from .errors import EmulatorInputError
 from .gp import PathwayEmulator, make_kernel
@@ -24,13 +26,24 @@ __all__ = ["save_emulator", "load_emulator", "FORMAT", "FORMAT_VERSION"]
 
 FORMAT = "sensemble-pathway-emulator"
 FORMAT_VERSION = 2  # 2: scores from smoothed residuals, small-sample variance (parameters smoothing, small_sample_correction)
-_ARRAYS = {  # attribute → dims
-    "X_train_": ("run", "input"), "Y_train_": ("run", "year"), "x_mean_": ("input",), "x_scale_": ("input",),
-    "residual_mean_": ("year",), "components_": ("component", "year"), "scores_": ("run", "component"),
-    "singular_values_": ("singular",), "explained_variance_ratio_": ("component",),
-    "truncated_components_": ("truncated", "year"), "truncated_scale_": ("truncated",),
-    "truncation_variance_": ("year",),
+_ARRAYS = {  # attribute → (dims, long name)
+    "X_train_": (("run", "input"), "training inputs, one row per training run"),
+    "Y_train_": (("run", "year"), "training warming pathways, one row per training run"),
+    "x_mean_": (("input",), "mean of each input, for standardisation"),
+    "x_scale_": (("input",), "scale of each input, for standardisation"),
+    "residual_mean_": (("year",), "ensemble mean of the residuals from the physics mean"),
+    "components_": (("component", "year"), "principal components of the residuals (kept)"),
+    "scores_": (("run", "component"), "scores of the training runs on the kept components"),
+    "singular_values_": (("singular",), "singular values of the centred residuals"),
+    "explained_variance_ratio_": (("component",), "share of the residual variance of each kept component"),
+    "truncated_components_": (("truncated", "year"), "principal components left out by the truncation"),
+    "truncated_scale_": (("truncated",), "predictive standard deviation of the left-out components' scores"),
+    "truncation_variance_": (("year",), "variance left out by the truncation"),
 }
+# warming and its residuals are temperature differences (CF §3.1.2 units_metadata)
+_UNITS = {"Y_train_": {"units": "K", "units_metadata": TEMPERATURE_DIFFERENCE},
+          "residual_mean_": {"units": "K", "units_metadata": TEMPERATURE_DIFFERENCE},
+          "truncation_variance_": {"units": "K2"}, "forcing": {"units": "W m-2"}}
 
 
 def _checksum(ds: xr.Dataset) -> str:
@@ -50,18 +63,24 @@ def save_emulator(emulator: PathwayEmulator, path, metadata: dict | None = None)
     """Write a fitted emulator to `path` (NetCDF, atomically). `metadata`: JSON-serialisable extras
     (e.g. scenario, run labels, settings) returned again by `load_emulator`."""
     emulator._check_fitted()
-    data = {name: (dims, np.asarray(getattr(emulator, name), float)) for name, dims in _ARRAYS.items()}
-    data["kernel_theta"] = (("component", "theta"), np.array([gp.kernel_.theta for gp in emulator.gps_]))
+    data = {name: (dims, np.asarray(getattr(emulator, name), float), {"long_name": long_name})
+            for name, (dims, long_name) in _ARRAYS.items()}
+    data["kernel_theta"] = (("component", "theta"), np.array([gp.kernel_.theta for gp in emulator.gps_]),
+                            {"long_name": "fitted kernel hyperparameters of each component's GP (log scale)"})
     mm = emulator.mean_model_
     if mm.forcing is not None:
-        data["forcing"] = (("year",), np.asarray(mm.forcing, float))
+        data["forcing"] = (("year",), np.asarray(mm.forcing, float), {"long_name": "effective radiative forcing of "
+                                                                     "the scenario used by the physics mean"})
     ds = xr.Dataset(data)
-    ds["forcing" if "forcing" in ds else "residual_mean_"].attrs["units"] = "W m-2" if "forcing" in ds else "K"
+    for name, attrs in _UNITS.items():
+        if name in ds:
+            ds[name].attrs.update(attrs)
     ds.attrs = {
         "format": FORMAT,
         "format_version": FORMAT_VERSION,
         "title": "fitted pathway emulator",
-        "Conventions": "CF-1.10",
+        "Conventions": CONVENTIONS,
+        "history": history_line("sensemble emulate: fitted pathway emulator"),
         "parameters": json.dumps(_jsonable(emulator.get_params())),
         "mean_model": json.dumps({k: getattr(mm, k) for k in ("n_years", "f2x", "heat_capacity", "deep_heat_capacity",
                                                               "exchange", "efficacy", "ecs_index")}),

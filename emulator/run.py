@@ -14,6 +14,8 @@ from typing import Callable
 import numpy as np
 import pandas as pd
 
+from sensemble.contract.cf import CONVENTIONS, TEMPERATURE_DIFFERENCE, history_line
+
 from .atomic import atomic_path, write_csv
 from .ensemble import EnsembleEmulator
 from .errors import EmulatorInputError
@@ -52,12 +54,26 @@ def _cases(prediction: PredictionSettings, ts: TrainingSet, rng):
 
 
 def _write_netcdf(ds, path, scenario):
+    """`pathways.nc`, CF-1.11 clean (the IOOS checker's `cf:1.11` suite reports nothing; tests/test_cf_outputs.py).
+
+    CF §1.3 and §2.5.1: a coordinate variable is numeric, strictly monotonic and has no `_FillValue`; so the case
+    names are a string label variable `case_name` on dimension `case` (CF §6.1), and no coordinate gets a fill
+    value. Years are written as 32-bit integers, which every CF version allows.
+    """
     ds = ds.copy()
-    ds.attrs.update(Conventions="CF-1.10", title=f"emulated warming pathways for scenario {scenario}",
+    ds.attrs.update(Conventions=CONVENTIONS, title=f"emulated warming pathways for scenario {scenario}",
                     source="sensemble pathway emulator", scenario=scenario,
-                    history=f"{time.strftime('%Y-%m-%dT%H:%M:%SZ', time.gmtime())} sensemble emulate")
+                    history=history_line("sensemble emulate"))
     ds["flags"] = ds["flags"].astype(str)
-    ds = ds.assign_coords(case=ds["case"].values.astype(str))
+    names = ds["case"].values.astype(str)
+    ds = ds.drop_vars("case").assign_coords(case_name=("case", names, {"long_name": "name of the case"}))
+    for name in ("year", "calendar_year"):
+        if name in ds.coords:
+            ds = ds.assign_coords({name: ds[name].astype("int32")})
+    for name in ("mean", "sd", "warming_quantile"):
+        ds[name].attrs["units_metadata"] = TEMPERATURE_DIFFERENCE  # warming is a temperature difference
+    for name in ds.coords:
+        ds[name].encoding["_FillValue"] = None
     with atomic_path(path) as tmp:
         ds.to_netcdf(tmp, engine="netcdf4")
     return Path(path)

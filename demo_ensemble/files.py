@@ -13,6 +13,8 @@ from pathlib import Path
 import netCDF4
 import numpy as np
 
+from sensemble.contract.cf import CONVENTIONS as CF_CONVENTIONS, TEMPERATURE_ON_SCALE
+
 from .fields import FieldRecipe, Grid
 from .models import CONTROL, ModelSpec, Run
 
@@ -21,7 +23,10 @@ __all__ = ["VARIABLE_ATTRS", "GRID_LABEL", "VERSION", "CONVENTIONS", "branch_att
 
 GRID_LABEL = "gn"
 VERSION = "v20250101"
-CONVENTIONS = "CF-1.7 CMIP-6.2"
+# CF version first (CF §2.6.1), then the CMIP global-attribute conventions the files imitate.
+CONVENTIONS = f"{CF_CONVENTIONS} CMIP-6.2"
+# No time stamp: the same seed must give byte-identical files.
+HISTORY = "sensemble demo-archive: invented data, not output of any climate model"
 FILL_VALUE = np.float32(1.0e20)
 _COMPLEVEL = 1  # zlib level: 1 is several times faster than 4 for ~the same size on noisy float32
 _BLOCK_BYTES = 32_000_000  # float64 bytes of one write block
@@ -32,7 +37,7 @@ _CHUNK_MONTHS = (120, 60, 24, 12, 6, 4, 3, 2, 1)
 # CF standard names (CF standard name table) and CMIP-style long names.
 VARIABLE_ATTRS = {
     "tas": {"standard_name": "air_temperature", "long_name": "Near-Surface Air Temperature", "units": "K",
-            "cell_methods": "area: time: mean", "coordinates": "height"},
+            "cell_methods": "area: time: mean", "coordinates": "height", "units_metadata": TEMPERATURE_ON_SCALE},
     "rsdt": {"standard_name": "toa_incoming_shortwave_flux", "long_name": "TOA Incident Shortwave Radiation",
              "units": "W m-2", "positive": "down", "cell_methods": "area: time: mean"},
     "rsut": {"standard_name": "toa_outgoing_shortwave_flux", "long_name": "TOA Outgoing Shortwave Radiation",
@@ -66,6 +71,7 @@ def _global_attributes(model: ModelSpec, run: Run | None, variable: str, grid: G
     indices = member[1:].replace("i", " ").replace("p", " ").replace("f", " ").split()
     attrs = {
         "Conventions": CONVENTIONS,
+        "history": HISTORY,
         "title": f"{model.source_id} output for the sensemble demo ensemble (invented data)",
         "comment": "Invented data from sensemble's demo_ensemble generator: not output of any real climate model.",
         "activity_id": "DEMO",
@@ -186,7 +192,8 @@ def write_run(archive: Path, model: ModelSpec, run: Run, branch: dict | None, va
         file_bounds = bounds[first:last]
         tmp, ds = _atomic_dataset(path)
         try:
-            ds.setncatts(gattrs)
+            # the cell areas live in their own fx file (CF §2.6.3, §7.2)
+            ds.setncatts(gattrs | {"external_variables": "areacella"})
             ds.createDimension("time", nt)
             ds.createDimension("bnds", 2)
             t = ds.createVariable("time", "f8", ("time",))

@@ -1,0 +1,147 @@
+"""Every kind of NetCDF file sensemble writes passes the IOOS compliance checker's `cf:1.11` suite with no error and
+no warning: the demo archive's files, `sensitivity.nc`, each group of `series/*.nc`, `pathways.nc`, `emulator.nc`.
+
+Source of every check here: the IOOS compliance checker (pip `compliance-checker`, suite `cf:1.11`, run through its
+Python API; it needs no network: the CF standard name table ships inside the package). Its "errors" are results of
+high priority (weight 3), its "warnings" those of medium priority (weight 2), as in its own text report.
+
+Groups: the checker applies its per-variable checks (units, standard names, cell methods, fill values, data types)
+to the root group's variables only. Of a file with groups it checks only where group attributes may stand (§2.7.2)
+and how coordinates are referred to across groups (§2.7.1); its check of same-named dimensions across groups looks
+for a dimension called `time` in every group and fails with KeyError when there is none (ours have `year`). So each
+series file is checked as it is, tolerating exactly that one failing check, and each of its groups is also checked
+as a file of its own (root attributes, then the group's attributes, dimensions and variables, copied unchanged).
+
+The files come from the suite's one shared batch (tests/cli/test_run.py: generated archive, extraction, emulation)
+and from one more extraction of one of its models with the clear-sky variables and the orthogonal fit, so that
+every series variable and table column is written.
+"""
+from __future__ import annotations
+
+from pathlib import Path
+
+import netCDF4
+import pytest
+from compliance_checker.runner import CheckSuite
+
+from sensemble.contract.cf import CONVENTIONS
+from tests.cli.test_run import run_cli, shared_batch
+
+SUITE = "cf:1.11"
+ERROR, WARNING = 3, 2  # the checker's priorities (BaseCheck.HIGH, BaseCheck.MEDIUM)
+# The checker's own defect, not the file's: it indexes `dimensions["time"]` in every group (see the docstring).
+GROUP_DIMENSION_CHECK = "check_invalid_same_named_dimension_across_groups"
+
+CLEAR_SKY_TOML = """\
+[archive]
+include_models = ["{model}"]
+
+[extraction]
+fit_years = [1, 40]
+early_years = [1, 10]
+late_years = [11, 40]
+tcr_years = [11, 30]
+bootstrap_samples = 20
+orthogonal_fit = true
+
+[output]
+figures = false
+"""
+
+
+@pytest.fixture(scope="module")
+def checker():
+    suite = CheckSuite()
+    suite.load_all_available_checkers()
+    return suite
+
+
+def cf_findings(suite, path: Path) -> tuple[list[str], list[str], dict]:
+    """(error messages, warning messages, {check name: exception}) of the `cf:1.11` suite on one file."""
+    dataset = suite.load_dataset(str(path))
+    try:
+        groups, failed_checks = suite.run_all(dataset, [SUITE], skip_checks=[])[SUITE]
+    finally:
+        dataset.close()
+    found = {ERROR: [], WARNING: []}
+    for result in groups:
+        if result.weight in found and result.value[0] != result.value[1]:
+            found[result.weight].extend(f"{result.name}: {m}" for m in result.msgs or ["(no message)"])
+    return found[ERROR], found[WARNING], {name: exc for name, (exc, _) in failed_checks.items()}
+
+
+def assert_cf_clean(suite, path: Path, tolerated: tuple[str, ...] = ()) -> None:
+    errors, warnings, failed_checks = cf_findings(suite, path)
+    assert errors == [] and warnings == [], f"{path.name}: errors {errors}, warnings {warnings}"
+    assert set(failed_checks) <= set(tolerated), f"{path.name}: checks that failed to run: {failed_checks}"
+    with netCDF4.Dataset(path) as ds:  # CF §2.6: the version named, an audit trail
+        assert CONVENTIONS in ds.getncattr("Conventions").split() and ds.getncattr("history").strip()
+
+
+def flatten_group(path: Path, group: str, dest: Path) -> Path:
+    """One group of `path` as a file of its own: root attributes, then the group's, its dimensions and variables."""
+    with netCDF4.Dataset(path) as src, netCDF4.Dataset(dest, "w", format="NETCDF4") as out:
+        g = src.groups[group]
+        out.setncatts({**{k: src.getncattr(k) for k in src.ncattrs()}, **{k: g.getncattr(k) for k in g.ncattrs()}})
+        for name, dim in g.dimensions.items():
+            out.createDimension(name, None if dim.isunlimited() else len(dim))
+        for name, var in g.variables.items():
+            attrs = {k: var.getncattr(k) for k in var.ncattrs()}
+            v = out.createVariable(name, var.datatype, var.dimensions, fill_value=attrs.pop("_FillValue", None))
+            v.setncatts(attrs)
+            v[:] = var[:]
+    return dest
+
+
+@pytest.fixture(scope="module")
+def batch(tmp_path_factory):
+    batch = shared_batch(tmp_path_factory)
+    assert batch.status == 0, batch.stderr
+    return batch
+
+
+@pytest.fixture(scope="module")
+def clear_sky(batch, tmp_path_factory) -> Path:
+    """The extraction folder of one model of the shared archive with every variable and the orthogonal fit."""
+    model = sorted(p.name for p in (batch.root / "archive").iterdir() if p.is_dir())[0]
+    root = tmp_path_factory.mktemp("cf-clear-sky")
+    (root / "extract.toml").write_text(CLEAR_SKY_TOML.format(model=model))
+    status, _, stderr = run_cli("extract", batch.root / "archive", "--out", root / "out", "--config",
+                                root / "extract.toml", "--workers", "1", "--quiet")
+    assert status == 0, stderr
+    return root / "out"
+
+
+def test_demo_archive_files_are_cf_clean(checker, batch):
+    archive = batch.root / "archive"
+    files = sorted(archive.rglob("*.nc"))
+    by_variable = {}
+    for path in files:
+        by_variable.setdefault(path.name.split("_")[0], path)
+    assert set(by_variable) == {"tas", "rsdt", "rsut", "rlut", "rsutcs", "rlutcs", "areacella"}
+    for path in by_variable.values():  # one file of each variable: they differ only in values and dates
+        assert_cf_clean(checker, path)
+
+
+@pytest.mark.parametrize("name", ["extract/sensitivity.nc", "emulate/pathways.nc", "emulate/emulator.nc"])
+def test_batch_outputs_are_cf_clean(checker, batch, name):
+    assert_cf_clean(checker, batch.out / name)
+
+
+def test_sensitivity_with_every_column_is_cf_clean(checker, clear_sky):
+    assert_cf_clean(checker, clear_sky / "sensitivity.nc")
+
+
+def test_series_files_and_each_group_are_cf_clean(checker, batch, clear_sky, tmp_path):
+    files = [*sorted((batch.out / "extract" / "series").glob("*.nc"))[:1], *sorted((clear_sky / "series").glob("*.nc"))]
+    assert len(files) == 2
+    variables = set()
+    for path in files:
+        assert_cf_clean(checker, path, tolerated=(GROUP_DIMENSION_CHECK,))
+        with netCDF4.Dataset(path) as ds:
+            groups = list(ds.groups)
+            variables |= {v for g in ds.groups.values() for v in g.variables}
+        assert {"piControl", "abrupt-4xCO2", "1pctCO2"} <= set(groups)
+        for group in groups:
+            assert_cf_clean(checker, flatten_group(path, group, tmp_path / f"{path.stem}-{group}.nc"))
+    assert {"tas", "rtnt", "rtnt_cs", "lw_cs", "sw_cs", "cre"} <= variables  # every series variable was checked

@@ -23,10 +23,12 @@ import pandas as pd
 from sklearn.base import BaseEstimator
 
 from .calibrate import calibrate_two_layer
+from sensemble.contract.constraints import problem
+
 from .errors import EmulatorInputError
 from .forcing import align_forcing, co2_forcing, diagnose_forcing, read_forcing_file
-from .gp import KERNELS, PathwayEmulator
-from .smoothing import SMOOTHERS
+from .gp import PathwayEmulator
+from .settings import ESTIMATOR_CONSTRAINTS
 from .training import TrainingSet
 from .variability import internal_variability_from_control
 
@@ -35,7 +37,6 @@ __all__ = ["EnsembleEmulator", "calibrate_runs", "per_model", "CALIBRATION_COLUM
 FORCING_RATIO = 2.0  # erf_4x / F2x, as in the sensitivity table's ecs_eff = -erf_4x / (2 feedback)
 CALIBRATION_COLUMNS = ["model", "member", "lambda_", "heat_capacity", "deep_heat_capacity", "exchange", "efficacy",
                        "forcing_4x", "status"]
-FORCING_SOURCES = ("diagnosed", "co2", "file")
 
 
 def calibrate_runs(ts: TrainingSet, efficacy: bool = False) -> pd.DataFrame:
@@ -104,23 +105,8 @@ class EnsembleEmulator(BaseEstimator):
     notes_ : list of what a user should know (e.g. a missing control)
     """
 
-    _parameter_constraints = {
-        "inputs": [tuple, list],
-        "physics_mean": [bool],
-        "forcing_source": [FORCING_SOURCES],
-        "forcing_file": [str, None],
-        "co2_file": [str, None],
-        "co2_reference": [(0.0, None)],
-        "efficacy": [bool],
-        "internal_variability": [bool],
-        "variance_kept": [(0.0, 1.0)],
-        "max_components": [(1, None)],
-        "kernel": [KERNELS],
-        "smoothing": [SMOOTHERS],
-        "small_sample_correction": [bool],
-        "n_restarts_optimizer": [(0, None)],
-        "random_state": [(0, None), None],
-    }
+    # declared in emulator/settings.py (a light module) so the config checks the same rules without scikit-learn
+    _parameter_constraints = ESTIMATOR_CONSTRAINTS
 
     def __init__(self, inputs=("ecs_eff",), physics_mean=True, forcing_source="diagnosed", forcing_file=None,
                  co2_file=None, co2_reference=278.0, efficacy=False, internal_variability=True, variance_kept=0.99,
@@ -151,9 +137,9 @@ class EnsembleEmulator(BaseEstimator):
     # -- fitting -----------------------------------------------------------------------------------------
     def _validate_params(self):
         for name, allowed in self._parameter_constraints.items():
-            value = getattr(self, name)
-            if not any(_satisfies(value, rule) for rule in allowed):
-                raise EmulatorInputError(f"{name} = {value!r} is not allowed; it must be {_describe(allowed)}")
+            phrase = problem(getattr(self, name), allowed)
+            if phrase:
+                raise EmulatorInputError(f"{type(self).__name__}: {name} {phrase}")
         if self.forcing_source == "file" and not self.forcing_file:
             raise EmulatorInputError("forcing_source = 'file' needs forcing_file")
         if self.forcing_source == "co2" and not self.co2_file:
@@ -231,27 +217,3 @@ class EnsembleEmulator(BaseEstimator):
         return self._fitted().prediction_target_
 
 
-def _satisfies(value, rule) -> bool:
-    if rule is None:
-        return value is None
-    if isinstance(rule, type):
-        return isinstance(value, rule) and not (rule is not bool and isinstance(value, bool))
-    if isinstance(rule, tuple) and len(rule) == 2 and not isinstance(rule[0], str):
-        low, high = rule
-        return (isinstance(value, (int, float, np.integer, np.floating)) and not isinstance(value, bool)
-                and (low is None or value >= low) and (high is None or value <= high))
-    return value in rule
-
-
-def _describe(allowed) -> str:
-    parts = []
-    for rule in allowed:
-        if rule is None:
-            parts.append("None")
-        elif isinstance(rule, type):
-            parts.append(rule.__name__)
-        elif isinstance(rule, tuple) and len(rule) == 2 and not isinstance(rule[0], str):
-            parts.append(f"a number in [{rule[0]}, {'∞' if rule[1] is None else rule[1]}]")
-        else:
-            parts.append("one of " + ", ".join(map(repr, rule)))
-    return " or ".join(parts)

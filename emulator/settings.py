@@ -9,6 +9,32 @@ from sensemble.contract.constraints import Elements, Interval, Options
 _POSITIVE_COUNT = [Interval(Integral, 0, None, closed="neither")]
 _SEED = [Interval(Integral, 0, None, closed="left")]
 
+#: Values of the estimator's string parameters (the modules that act on them import these).
+KERNELS = ("matern52", "rbf")  # emulator/gp.py make_kernel
+SMOOTHERS = ("auto", "response", "gaussian", "none")  # emulator/smoothing.py
+FORCING_SOURCES = ("diagnosed", "co2", "file")  # emulator/forcing.py
+
+#: The constraints of `EnsembleEmulator`'s parameters (its `_parameter_constraints`, scikit-learn style), declared
+#: here, in this light module, so that the config checks the `[emulator]` keys of the same names against them
+#: before any data is read, without importing scikit-learn. Spelled once: the estimator and the config both use it.
+ESTIMATOR_CONSTRAINTS = {
+    "inputs": [tuple, list],
+    "physics_mean": [bool],
+    "forcing_source": [Options(*FORCING_SOURCES)],
+    "forcing_file": [str, None],
+    "co2_file": [str, None],
+    "co2_reference": [Interval(Real, 0, None, closed="neither")],
+    "efficacy": [bool],
+    "internal_variability": [bool],
+    "variance_kept": [Interval(Real, 0, 1, closed="right")],
+    "max_components": _POSITIVE_COUNT,
+    "kernel": [Options(*KERNELS)],
+    "smoothing": [Options(*SMOOTHERS)],
+    "small_sample_correction": [bool],
+    "n_restarts_optimizer": [Interval(Integral, 0, None, closed="left")],
+    "random_state": _SEED + [None],
+}
+
 
 @dataclass(frozen=True)
 class EmulatorSettings:
@@ -35,16 +61,9 @@ class EmulatorSettings:
     validate: bool = True  # leave-one-model-out validation (needs ≥ 4 models)
     validation_samples: int = 1000  # sampled pathways per held-out run for its end-of-pathway interval
 
-    # Allowed values, declared once (scikit-learn style); the config reader checks them before any file is read.
+    # Allowed values: the estimator's own declaration for the fields it takes, and the run's own fields.
     _parameter_constraints = {
-        "forcing_source": [Options("diagnosed", "co2", "file")],
-        "variance_kept": [Interval(Real, 0, 1, closed="right")],
-        "max_components": _POSITIVE_COUNT,
-        "kernel": [Options("matern52", "rbf")],
-        "smoothing": [Options("auto", "response", "gaussian", "none")],  # emulator/smoothing.py SMOOTHERS
-        "random_state": _SEED,
-        "n_restarts_optimizer": [Interval(Integral, 0, None, closed="left")],
-        "co2_reference": [Interval(Real, 0, None, closed="neither")],
+        **ESTIMATOR_CONSTRAINTS,
         "validation_samples": _POSITIVE_COUNT,
     }
 

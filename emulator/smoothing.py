@@ -23,9 +23,10 @@ from __future__ import annotations
 import numpy as np
 from scipy.signal import lfilter
 
+from .settings import SMOOTHERS  # the smoothing choices, declared with the estimator's constraints
+
 __all__ = ["SMOOTHERS", "GAUSSIAN_YEARS", "gaussian_smoother", "response_smoother", "forced_part"]
 
-SMOOTHERS = ("auto", "response", "gaussian", "none")
 GAUSSIAN_YEARS = 5.0
 
 

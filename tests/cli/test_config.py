@@ -364,3 +364,22 @@ def test_shipped_config_is_found_by_name():
     assert shipped_config("demo") == CONFIGS / "demo.toml"
     with pytest.raises(ConfigError, match="no shipped config 'nonesuch'"):
         shipped_config("nonesuch")
+
+
+def test_emulator_rules_are_the_estimators_own_declaration():
+    # spelled once: the [emulator] keys that are estimator parameters are checked against its _parameter_constraints
+    from sensemble.emulator.ensemble import EnsembleEmulator
+    from sensemble.emulator.errors import EmulatorInputError
+    from sensemble.emulator.settings import ESTIMATOR_CONSTRAINTS, EmulatorSettings
+
+    assert EnsembleEmulator._parameter_constraints is ESTIMATOR_CONSTRAINTS
+    assert set(ESTIMATOR_CONSTRAINTS) == set(EnsembleEmulator._get_param_names())
+    fields = {f.name for f in dataclasses.fields(EmulatorSettings)}
+    for name, rules in ESTIMATOR_CONSTRAINTS.items():
+        if name in fields:
+            assert EmulatorSettings._parameter_constraints[name] is rules, name
+    # the estimator refuses the same value with the same words, before it looks at any data
+    with pytest.raises(EmulatorInputError, match='smoothing must be one of .*the closest valid value is "gaussian"'):
+        EnsembleEmulator(smoothing="gausian").fit(None)
+    with pytest.raises(EmulatorInputError, match="n_restarts_optimizer must be >= 0, got -3"):
+        EnsembleEmulator(n_restarts_optimizer=-3).fit(None)

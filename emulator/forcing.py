@@ -120,14 +120,23 @@ def diagnose_forcing(tas, rtnt, lambda_, groups=None) -> xr.DataArray:
                                "n_models": per_model.shape[0]})
 
 
-def align_forcing(forcing: xr.DataArray, years, calendar_years=None) -> tuple[np.ndarray, str]:
+def align_forcing(forcing: xr.DataArray, years, calendar_years=None, allow_longer: bool = False) -> tuple[np.ndarray, str]:
     """The forcing on the training years: matched on calendar years when they cover, else on run years.
+    A forcing that goes on past the runs' last year is refused unless `allow_longer` (never silently cut).
 
     Returns (values, how) with `how` ∈ {"calendar_year", "year"}; an error says which years are missing.
     """
     have = set(int(y) for y in forcing["year"].values)
     for label, wanted in (("calendar_year", calendar_years), ("year", years)):
         if wanted is not None and set(int(y) for y in wanted) <= have:
+            last = int(forcing["year"].max())
+            if last > int(np.max(wanted)) and not allow_longer:
+                # the pathway would be cut to the runs' years without a word (issue 13): refuse instead
+                raise EmulatorInputError(
+                    f"the forcing runs to {label.replace('_', ' ')} {last}, the scenario's runs end at "
+                    f"{int(np.max(wanted))}; this route predicts only the runs' years",
+                    path=forcing.attrs.get("source_file"),
+                    hint='use the parameter route (route = "parameters") for the whole pathway')
             return forcing.sel(year=np.asarray(wanted, int)).values.astype(float), label
     span = f"{int(forcing['year'].min())}–{int(forcing['year'].max())}"
     want = f"{int(years[0])}–{int(years[-1])}"

@@ -9,17 +9,18 @@ realisation, as the archive's runs are. The whole forcing pathway is run: no tra
 """
 from __future__ import annotations
 
-from dataclasses import dataclass
-
 import numpy as np
+from sklearn.base import BaseEstimator
 
 from .ebm import integrate
+from .ensemble import FORCING_RATIO, calibrate_runs
 from .errors import EmulatorInputError
-from .gp import ar1_noise
-from .parameters import ParameterEmulator
-from .scenarios import ScenarioForcing
+from .parameters import ParameterEmulator, parameter_table
+from .scenarios import ScenarioForcing, co2_scenario, diagnosed_scenario, file_scenario
+from .training import TrainingSet
+from .variability import ar1_noise, internal_variability_from_control
 
-__all__ = ["sample_pathways", "ParameterRoute", "ROUTE_NAME"]
+__all__ = ["sample_pathways", "mean_pathway", "ParameterPathwayEmulator", "ROUTE_NAME"]
 
 ROUTE_NAME = "parameters"
 
@@ -40,42 +41,140 @@ def sample_pathways(emulator: ParameterEmulator, scenario: ScenarioForcing, X, n
     return warming
 
 
-@dataclass
-class ParameterRoute:
-    """A fitted parameter emulator bound to one scenario: the interface the prediction code samples from.
+def mean_pathway(emulator: ParameterEmulator, scenario: ScenarioForcing, X) -> np.ndarray:
+    """(m, n_years) response of the predicted median vector at X to the reference forcing, at its median scale."""
+    vectors = emulator.predict(X)
+    warming, _ = integrate(scenario.reference, emulator.two_layer(vectors), deep=False)
+    return warming * scenario.without_uncertainty().scales(vectors["f2x"])[..., None]
 
-    `predict(X, return_std=True)` gives the mean and sd of `n_moments` sampled pathways per point (the
-    distribution is not Gaussian: use `sample_paths` for quantiles); `sample_paths(X, n)` gives (m, n, years).
+
+class ParameterPathwayEmulator(BaseEstimator):
+    """Pathway emulator of one scenario through the parameter route, learned from an ensemble's training set.
+
+    `fit(training_set)` calibrates each run's abrupt series (Geoffroy et al. 2013a,b), fits the
+    `ParameterEmulator` to the calibrated vectors, builds the scenario's forcing (diagnosed from the training
+    set's scenario runs, or from a forcing file or a CO2 file: emulator.scenarios) and the internal
+    variability of the control runs. It never fits anything to the scenario's warming: with a diagnosed
+    forcing the scenario runs enter only through N + λT. A forcing file is run over all its years.
+
+    Parameters
+    ----------
+    inputs : sensitivity-table columns (default ecs_eff)
+    forcing_source : "diagnosed" | "file" | "co2"; forcing_file, co2_file, co2_reference (C0, ppm) as for
+        `EnsembleEmulator`; scale_to_f2x : a forcing file is the forcing of a median-F2x model, each sampled
+        vector's forcing scales with its F2x (False: the file's values for every vector)
+    efficacy : calibrate ε (Geoffroy et al. 2013b); internal_variability : add the control runs' AR(1)
+    structural_scatter, small_sample : passed to `ParameterEmulator`
+    n_moments : sampled pathways behind `predict`'s mean and sd; random_state : their seed
+
+    Attributes
+    ----------
+    calibration_ : per-run calibration table; parameters_ : the fitted `ParameterEmulator`
+    scenario_ : `ScenarioForcing`; internal_variability_ : (sd, lag-1) or None; route_ = "parameters"
+    notes_ : what a user should know
     """
 
-    emulator: ParameterEmulator
-    scenario: ScenarioForcing
-    internal_variability: tuple[float, float] | None = None
-    n_moments: int = 4000
-    random_state: int = 0
+    route_ = ROUTE_NAME
+    _parameter_constraints = {
+        "forcing_source": [("diagnosed", "file", "co2")], "scale_to_f2x": [bool], "efficacy": [bool],
+        "internal_variability": [bool], "structural_scatter": [bool], "small_sample": [bool],
+        "n_moments": [(2, None)], "co2_reference": [(0.0, None)],
+    }
 
-    @property
-    def inputs(self):
-        return tuple(self.emulator.inputs)
+    def __init__(self, inputs=("ecs_eff",), forcing_source="diagnosed", forcing_file=None, co2_file=None,
+                 co2_reference=278.0, scale_to_f2x=True, efficacy=False, internal_variability=True,
+                 structural_scatter=True, small_sample=True, n_moments=4000, random_state=0):
+        self.inputs = inputs
+        self.forcing_source = forcing_source
+        self.forcing_file = forcing_file
+        self.co2_file = co2_file
+        self.co2_reference = co2_reference
+        self.scale_to_f2x = scale_to_f2x
+        self.efficacy = efficacy
+        self.internal_variability = internal_variability
+        self.structural_scatter = structural_scatter
+        self.small_sample = small_sample
+        self.n_moments = n_moments
+        self.random_state = random_state
 
-    @property
-    def prediction_target_(self) -> str:
-        what = "one realisation (sampled two-layer parameters and forcing scale"
-        return what + (", internal variability)" if self.internal_variability else ")")
+    def _validate_params(self):
+        for name, allowed in self._parameter_constraints.items():
+            value = getattr(self, name)
+            ok = False
+            for rule in allowed:
+                if rule is bool:
+                    ok |= isinstance(value, (bool, np.bool_))
+                elif isinstance(rule, tuple) and len(rule) == 2 and not isinstance(rule[0], str):
+                    ok |= (isinstance(value, (int, float, np.number)) and not isinstance(value, bool)
+                           and (rule[0] is None or value >= rule[0]))
+                else:
+                    ok |= value in rule
+            if not ok:
+                raise EmulatorInputError(f"{name} = {value!r} is not allowed ({allowed})")
+        if self.forcing_source == "file" and not self.forcing_file:
+            raise EmulatorInputError("forcing_source = 'file' needs forcing_file")
+        if self.forcing_source == "co2" and not self.co2_file:
+            raise EmulatorInputError("forcing_source = 'co2' needs co2_file")
 
-    def sample_paths(self, X, n_samples: int, random_state=None) -> np.ndarray:
-        return sample_pathways(self.emulator, self.scenario, X, int(n_samples), random_state,
-                               self.internal_variability)
+    def fit(self, training_set: TrainingSet) -> "ParameterPathwayEmulator":
+        """Learn the parameter emulator, the forcing and the internal variability; returns self."""
+        self._validate_params()
+        ts = training_set
+        self.notes_ = []
+        self.calibration_ = calibrate_runs(ts, efficacy=self.efficacy)
+        ok = (self.calibration_["status"] == "ok").to_numpy()
+        if not ok.any():
+            raise EmulatorInputError("no run could be calibrated from its abrupt series", path=ts.source or None)
+        vectors = parameter_table(self.calibration_, FORCING_RATIO)
+        self.parameters_ = ParameterEmulator(tuple(self.inputs), self.structural_scatter, self.small_sample).fit(
+            ts.X[ok], vectors, groups=ts.models[ok])
+        self.scenario_ = self._scenario(ts, ok, vectors)
+        self.internal_variability_ = None
+        if self.internal_variability:
+            try:
+                self.internal_variability_ = internal_variability_from_control(ts.control_tas)
+            except EmulatorInputError as exc:
+                self.notes_.append(str(exc))
+        return self
+
+    def _scenario(self, ts: TrainingSet, ok, vectors) -> ScenarioForcing:
+        name = ts.scenario or "forcing"
+        if self.forcing_source == "file":
+            median_f2x = float(np.median(self.parameters_.parameters_train_[:, 0]))
+            return file_scenario(name, self.forcing_file, median_f2x if self.scale_to_f2x else None)
+        if self.forcing_source == "co2":
+            return co2_scenario(name, self.co2_file, self.co2_reference)
+        if ts.Y.shape[1] == 0:
+            raise EmulatorInputError("a diagnosed forcing needs the scenario's runs",
+                                     hint="name an experiment of the archive, or give a forcing or CO2 file")
+        lam = -ts.table["feedback"].to_numpy(float) if "feedback" in ts.table else np.full(ts.n_runs, np.nan)
+        lam = np.where(np.isfinite(lam) & (lam > 0), lam, self.calibration_["lambda_"].to_numpy(float))
+        f2x = self.calibration_["forcing_4x"].to_numpy(float) / FORCING_RATIO
+        usable = np.isfinite(lam) & (lam > 0) & np.isfinite(f2x)
+        if not usable.any():
+            raise EmulatorInputError("no run has a feedback parameter to diagnose the forcing with")
+        return diagnosed_scenario(ts.scenario, ts.Y[usable], ts.scenario_rtnt[usable], lam[usable], f2x[usable],
+                                  groups=ts.models[usable], years=ts.years, calendar_years=ts.calendar_years)
+
+    # -- prediction ----------------------------------------------------------------------------------------
+    def _fitted(self):
+        if not hasattr(self, "parameters_"):
+            raise EmulatorInputError("this ParameterPathwayEmulator is not fitted yet; call fit first")
+        return self
+
+    def sample_paths(self, X, n_samples: int = 1000, random_state=None) -> np.ndarray:
+        """Random pathways (n_cases, n_samples, n_years)."""
+        self._fitted()
+        return sample_pathways(self.parameters_, self.scenario_, X, int(n_samples), random_state,
+                               self.internal_variability_)
 
     def predict(self, X, return_std: bool = False):
+        """Mean pathway (n_cases, n_years) from `n_moments` sampled pathways; with `return_std` their sd."""
         paths = self.sample_paths(X, self.n_moments, self.random_state)
         mean = paths.mean(axis=1)
         return (mean, paths.std(axis=1, ddof=1)) if return_std else mean
 
-    def mean_pathway(self, X) -> np.ndarray:
-        """(m, n_years) response of the predicted median vector to the reference forcing, at its median scale."""
-        vectors = self.emulator.predict(X)
-        if self.scenario.n_years == 0:
-            raise EmulatorInputError(f"scenario {self.scenario.name!r} has no years")
-        warming, _ = integrate(self.scenario.reference, self.emulator.two_layer(vectors), deep=False)
-        return warming * self.scenario.without_uncertainty().scales(vectors["f2x"])[..., None]
+    @property
+    def prediction_target_(self) -> str:
+        what = "one realisation (sampled two-layer parameters and forcing scale"
+        return what + (", internal variability)" if getattr(self, "internal_variability_", None) else ")")

@@ -18,7 +18,7 @@ import xarray as xr
 
 from .errors import EmulatorInputError
 
-__all__ = ["TrainingSet", "load_training_set", "available_scenarios"]
+__all__ = ["TrainingSet", "load_training_set", "load_physics_set", "available_scenarios"]
 
 
 @dataclass
@@ -223,4 +223,57 @@ def load_training_set(extract_dir, scenario: str | None = None, inputs=("ecs_eff
         table=pd.DataFrame([r["row"] for r in kept]).reset_index(drop=True),
         skipped=pd.DataFrame(skipped, columns=["model", "member", "reason"]),
         source=str(extract_dir),
+    )
+
+
+def load_physics_set(extract_dir, inputs=("ecs_eff",)) -> TrainingSet:
+    """What the parameter route learns from: every run's inputs, abrupt series and control residuals, no
+    scenario (`Y` has no years, `scenario` is empty). A run without inputs, series file or abrupt run is
+    skipped and recorded, as in `load_training_set`."""
+    extract_dir = Path(extract_dir)
+    table_path = extract_dir / "sensitivity.csv"
+    if not table_path.exists():
+        raise EmulatorInputError("no sensitivity.csv", path=extract_dir, hint="point to an extractor output folder")
+    table = pd.read_csv(table_path, dtype={"model": str, "member": str, "flags": str}, keep_default_na=True)
+    inputs = tuple(inputs)
+    unknown = [c for c in inputs if c not in table.columns]
+    if unknown:
+        raise EmulatorInputError(f"input column(s) {', '.join(unknown)} not in the table", path=table_path)
+    index = _series_index(extract_dir)
+    skipped, kept = [], []
+    for _, row in table.iterrows():
+        model, member = str(row["model"]), str(row["member"])
+        values = row[list(inputs)].astype(float).to_numpy()
+        path = index.get((model, member), _series_path(extract_dir, model, member))
+        if not np.all(np.isfinite(values)):
+            skipped.append((model, member, "missing input " + ", ".join(c for c, v in zip(inputs, values)
+                                                                         if not np.isfinite(v))))
+            continue
+        if not path.exists():
+            skipped.append((model, member, f"no series file {path.name}"))
+            continue
+        root, groups = _groups(path)
+        abrupt, control = _role_group(root, groups, "abrupt"), _role_group(root, groups, "control")
+        if abrupt is None:
+            skipped.append((model, member, f"no abrupt run in {path.name}"))
+            continue
+        series = _read_group(path, abrupt)
+        kept.append(dict(row=row, model=model, member=member, x=values,
+                         abrupt_tas=series["tas"].to_numpy().astype(float),
+                         abrupt_rtnt=series["rtnt"].to_numpy().astype(float),
+                         control=_read_group(path, control, ("tas",))["tas"].to_numpy().astype(float)
+                         if control else None))
+    if not kept:
+        raise EmulatorInputError("no run with inputs and an abrupt run", path=extract_dir,
+                                 hint="; ".join(f"{m} {r}: {why}" for m, r, why in skipped[:5]))
+    n = len(kept)
+    return TrainingSet(
+        inputs=inputs, X=np.array([r["x"] for r in kept], dtype=float), Y=np.zeros((n, 0)),
+        years=np.arange(1, 1), calendar_years=None,
+        models=np.array([r["model"] for r in kept], dtype=object),
+        members=np.array([r["member"] for r in kept], dtype=object), scenario="",
+        scenario_rtnt=np.zeros((n, 0)), abrupt_tas=[r["abrupt_tas"] for r in kept],
+        abrupt_rtnt=[r["abrupt_rtnt"] for r in kept], control_tas=[r["control"] for r in kept],
+        table=pd.DataFrame([r["row"] for r in kept]).reset_index(drop=True),
+        skipped=pd.DataFrame(skipped, columns=["model", "member", "reason"]), source=str(extract_dir),
     )

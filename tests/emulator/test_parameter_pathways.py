@@ -4,7 +4,7 @@ import pandas as pd
 import pytest
 
 from sensemble.emulator.ebm import TwoLayerParameters, integrate, modes
-from sensemble.emulator.parameter_pathways import ParameterRoute, sample_pathways
+from sensemble.emulator.parameter_pathways import mean_pathway, sample_pathways
 from sensemble.emulator.parameters import ParameterEmulator
 from sensemble.emulator.scenarios import ScenarioForcing, file_scenario
 
@@ -43,8 +43,7 @@ def test_stabilised_forcing_approaches_equilibrium_with_the_slow_time_scale():
     years = np.arange(1, 3001)
     forcing = np.where(years <= 50, 4.0 * years / 50.0, 4.0)  # ramp, then held
     scenario = ScenarioForcing("stable", "file", years, forcing, None)
-    route = ParameterRoute(one_model_emulator(), scenario)
-    warming = route.mean_pathway([[MODEL["f2x"] / lam]])[0]
+    warming = mean_pathway(one_model_emulator(), scenario, [[MODEL["f2x"] / lam]])[0]
     assert warming[-1] == pytest.approx(4.0 / lam, rel=1e-5)
     deficit = 4.0 / lam - warming
     late = (years > 600) & (years < 1500)
@@ -74,3 +73,46 @@ def test_vectorised_samples_carry_parameter_and_forcing_spread():
     # internal variability widens it
     noisy = sample_pathways(em, scenario, np.full((300, 1), 3.0), None, random_state=1, internal_variability=(0.3, 0.5))
     assert noisy[:, -1].std() > sd_end
+
+
+def test_estimator_on_an_archive_scenario_validates_out_of_sample(extract_dir):
+    # Leave-one-model-out (common practice in emulator validation, no source): the parameter route never fits
+    # the scenario's warming, and still predicts held-out invented models within their 90 % intervals.
+    from sklearn.base import clone
+
+    from sensemble.emulator.parameter_pathways import ParameterPathwayEmulator
+    from sensemble.emulator.training import load_training_set
+    from sensemble.emulator.validate import leave_one_model_out
+
+    path, truth = extract_dir
+    ts = load_training_set(path, "scen-rise")
+    est = ParameterPathwayEmulator(n_moments=500)
+    fitted = clone(est).fit(ts)
+    assert fitted.scenario_.kind == "archive" and fitted.scenario_.n_years == 100
+    # the diagnosed forcing recovers the invented one in decadal means (Forster et al. 2013 diagnosis, ε = 1)
+    decadal = lambda x: np.asarray(x).reshape(10, 10).mean(axis=1)  # noqa: E731
+    np.testing.assert_allclose(decadal(fitted.scenario_.reference), decadal(truth["scenario_forcing"]), atol=0.1)
+    per_run, summary = leave_one_model_out(ts, est, n_samples=400, random_state=0)
+    assert summary["end_rmse"] < 0.35
+    assert summary["end_coverage90"] >= 0.7
+
+
+def test_forcing_file_longer_than_the_runs_gives_the_whole_pathway(extract_dir, tmp_path):
+    # Issue 13's finding: a 251-year pathway must come out with 251 years (parameter route), and the GP
+    # route, which can only predict the runs' years, refuses in one line instead of cutting it.
+    from sensemble.emulator.ensemble import EnsembleEmulator
+    from sensemble.emulator.errors import EmulatorInputError
+    from sensemble.emulator.parameter_pathways import ParameterPathwayEmulator
+    from sensemble.emulator.training import load_physics_set, load_training_set
+
+    path, _ = extract_dir
+    years = np.arange(2001, 2252)
+    co2 = tmp_path / "co2.csv"
+    pd.DataFrame({"year": years, "co2": 278.0 * 1.005 ** (years - 2000)}).to_csv(co2, index=False)
+    physics = load_physics_set(path)
+    assert physics.Y.shape[1] == 0 and physics.n_runs == 13
+    est = ParameterPathwayEmulator(forcing_source="co2", co2_file=str(co2), n_moments=200).fit(physics)
+    mean = est.predict([[3.0]])
+    assert mean.shape == (1, 251) and est.scenario_.years[-1] == 2251
+    with pytest.raises(EmulatorInputError, match="runs to calendar year 2251.*parameter route"):
+        EnsembleEmulator(forcing_source="co2", co2_file=str(co2)).fit(load_training_set(path, "scen-rise"))

@@ -15,6 +15,7 @@ import numpy as np
 import pandas as pd
 
 from sensemble.contract.cf import CONVENTIONS, TEMPERATURE_DIFFERENCE, history_line
+from sensemble.contract.table import COLUMN_META
 
 from .atomic import atomic_path, write_csv
 from .ensemble import EnsembleEmulator
@@ -72,6 +73,9 @@ def _write_netcdf(ds, path, scenario):
             ds = ds.assign_coords({name: ds[name].astype("int32")})
     for name in ("mean", "sd", "warming_quantile"):
         ds[name].attrs["units_metadata"] = TEMPERATURE_DIFFERENCE  # warming is a temperature difference
+    for name in str(ds.attrs.get("inputs", "")).split(";"):
+        if name in ds and name in COLUMN_META:  # the inputs are table columns: their units come with them
+            ds[name].attrs.setdefault("units", COLUMN_META[name][0])
     for name in ds.coords:
         ds[name].encoding["_FillValue"] = None
     with atomic_path(path) as tmp:

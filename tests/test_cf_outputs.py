@@ -128,6 +128,12 @@ def test_batch_outputs_are_cf_clean(checker, batch, name):
     assert_cf_clean(checker, batch.out / name)
 
 
+def test_pathways_labels_and_units(batch):
+    with netCDF4.Dataset(batch.out / "emulate" / "pathways.nc") as ds:
+        assert "case" not in ds.variables and ds["case_name"].dimensions == ("case",)  # labels, CF §6.1
+        assert ds["ecs_eff"].units == "K" and ds["mean"].units_metadata == "temperature: difference"
+
+
 def test_sensitivity_with_every_column_is_cf_clean(checker, clear_sky):
     assert_cf_clean(checker, clear_sky / "sensitivity.nc")
 

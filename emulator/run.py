@@ -57,17 +57,18 @@ def _cases(prediction: PredictionSettings, ts: TrainingSet, rng):
 def _write_netcdf(ds, path, scenario):
     """`pathways.nc`, CF-1.11 clean (the IOOS checker's `cf:1.11` suite reports nothing; tests/test_cf_outputs.py).
 
-    CF §1.3 and §2.5.1: a coordinate variable is numeric, strictly monotonic and has no `_FillValue`; so the case
-    names are a string label variable `case_name` on dimension `case` (CF §6.1), and no coordinate gets a fill
-    value. Years are written as 32-bit integers, which every CF version allows.
+    CF §1.3 and §2.5.1: a coordinate variable is numeric, strictly monotonic and has no `_FillValue`; so names
+    along a dimension (the cases) are a string label variable `<dim>_name` on it (`case_name`, CF §6.1), and no
+    coordinate gets a fill value. Years are written as 32-bit integers, which every CF version allows.
     """
     ds = ds.copy()
     ds.attrs.update(Conventions=CONVENTIONS, title=f"emulated warming pathways for scenario {scenario}",
                     source="sensemble pathway emulator", scenario=scenario,
                     history=history_line("sensemble emulate"))
     ds["flags"] = ds["flags"].astype(str)
-    names = ds["case"].values.astype(str)
-    ds = ds.drop_vars("case").assign_coords(case_name=("case", names, {"long_name": "name of the case"}))
+    for dim in [d for d in ds.dims if d in ds.coords and ds[d].dtype.kind in "OUS"]:  # e.g. case
+        labels = ds[dim].values.astype(str)
+        ds = ds.drop_vars(dim).assign_coords({f"{dim}_name": (dim, labels, {"long_name": f"name of the {dim}"})})
     for name in ("year", "calendar_year"):
         if name in ds.coords:
             ds = ds.assign_coords({name: ds[name].astype("int32")})

@@ -26,13 +26,15 @@ def main(argv=None) -> int:
     parser.add_argument("--years", default="",
                         help="shorter or longer runs, ROLE=N[,ROLE=N...] with roles " + ", ".join(
                             f"{k} (default {v})" for k, v in DEFAULT_YEARS.items()))
+    parser.add_argument("--mixed", action="store_true",
+                        help="write every second model the CMIP5 way (directories, names, ids, attributes)")
     parser.add_argument("--quiet", action="store_true", help="no progress lines")
     args = parser.parse_args(argv)
     try:
         grid = _parse_grid(args.grid)
         start = time.perf_counter()
         root = generate(args.dir, n_models=args.models, seed=args.seed, grid=grid,
-                        years=_parse_years(args.years) or None, progress=not args.quiet)
+                        years=_parse_years(args.years) or None, progress=not args.quiet, mixed=args.mixed)
     except (ValueError, FileExistsError) as err:
         print(f"demo_ensemble: {err}", file=sys.stderr)
         return 2

@@ -15,6 +15,7 @@ import numpy as np
 
 from sensemble.contract.cf import CONVENTIONS as CF_CONVENTIONS, TEMPERATURE_ON_SCALE
 
+from . import generations
 from .fields import FieldRecipe, Grid
 from .models import CONTROL, ModelSpec, Run
 
@@ -109,10 +110,10 @@ def _drs_folder(archive: Path, model: ModelSpec, experiment_id: str, member: str
     return archive / model.source_id / experiment_id / member / table / variable / GRID_LABEL / VERSION
 
 
-def _atomic_dataset(path: Path):
+def _atomic_dataset(path: Path, file_format: str = "NETCDF4"):
     path.parent.mkdir(parents=True, exist_ok=True)
     tmp = path.with_name(f".{path.name}.part")
-    return tmp, netCDF4.Dataset(tmp, "w", format="NETCDF4")
+    return tmp, netCDF4.Dataset(tmp, "w", format=file_format)
 
 
 def _add_lat_lon(ds, grid: Grid) -> None:
@@ -132,13 +133,22 @@ def _add_lat_lon(ds, grid: Grid) -> None:
         b[:] = bounds
 
 
-def write_areacella(archive: Path, model: ModelSpec, grid: Grid) -> Path:
-    """The fx cell-area file, filed under the control run as is usual."""
-    folder = _drs_folder(archive, model, CONTROL, "r1i1p1f1", "fx", "areacella")
-    path = folder / f"areacella_fx_{model.source_id}_{CONTROL}_r1i1p1f1_{GRID_LABEL}.nc"
-    tmp, ds = _atomic_dataset(path)
+def write_areacella(archive: Path, model: ModelSpec, grid: Grid, era: str = generations.CMIP6) -> Path:
+    """The fx cell-area file, filed under the control run as is usual (CMIP5: member r0i0p0)."""
+    gattrs = _global_attributes(model, model.run(CONTROL), "areacella", grid, "fx", "fx")
+    file_format = "NETCDF4"
+    if era == generations.CMIP5:
+        ensemble = generations.CMIP5_FIXED_MEMBER
+        path = (generations.folder(archive, model.institution_id, model.source_id, CONTROL, ensemble, "fx",
+                                   "areacella", VERSION)
+                / generations.file_name("areacella", "fx", model.source_id, CONTROL, ensemble))
+        gattrs, file_format = generations.attributes(gattrs, None, ensemble), generations.CMIP5_FORMAT
+    else:
+        folder = _drs_folder(archive, model, CONTROL, "r1i1p1f1", "fx", "areacella")
+        path = folder / f"areacella_fx_{model.source_id}_{CONTROL}_r1i1p1f1_{GRID_LABEL}.nc"
+    tmp, ds = _atomic_dataset(path, file_format)
     try:
-        ds.setncatts(_global_attributes(model, model.run(CONTROL), "areacella", grid, "fx", "fx"))
+        ds.setncatts(gattrs)
         _add_lat_lon(ds, grid)
         v = ds.createVariable("areacella", "f4", ("lat", "lon"), zlib=True, complevel=_COMPLEVEL, shuffle=True,
                               fill_value=FILL_VALUE)
@@ -166,11 +176,13 @@ def branch_attributes(model: ModelSpec, run: Run, branch_time_in_parent: float,
 
 
 def write_run(archive: Path, model: ModelSpec, run: Run, branch: dict | None, variable: str,
-              recipe: FieldRecipe, series: np.ndarray, grid: Grid, bounds: np.ndarray) -> list[Path]:
+              recipe: FieldRecipe, series: np.ndarray, grid: Grid, bounds: np.ndarray,
+              era: str = generations.CMIP6) -> list[Path]:
     """Write one variable of one run, split into files of `model.file_years` years (or one file).
 
     bounds : month bounds (n_months, 2) in the model's time units and calendar
     branch : the run's branch attributes (`branch_attributes`), None for the control
+    era : "CMIP6", or "CMIP5" for that generation's directories, names, attributes and file format
     """
     n_months = len(series)
     per_file = 12 * model.file_years if model.file_years else n_months
@@ -178,6 +190,14 @@ def write_run(archive: Path, model: ModelSpec, run: Run, branch: dict | None, va
     gattrs = _global_attributes(model, run, variable, grid, "mon", "Amon")
     if branch is not None:
         gattrs.update(branch)
+    stem, file_format = f"{variable}_Amon_{model.source_id}_{run.experiment_id}_{run.member}_{GRID_LABEL}", "NETCDF4"
+    if era == generations.CMIP5:
+        experiment_id, ensemble = generations.experiment(run.experiment_id), generations.member(run.member)
+        folder = generations.folder(archive, model.institution_id, model.source_id, experiment_id, ensemble, "Amon",
+                                    variable, VERSION)
+        gattrs = generations.attributes(gattrs, branch, ensemble)
+        stem = generations.file_name(variable, "Amon", model.source_id, experiment_id, ensemble)[:-3]
+        file_format = generations.CMIP5_FORMAT
     nlat, nlon = grid.shape
     block = max(1, _BLOCK_BYTES // (8 * nlat * nlon))
     paths = []
@@ -185,12 +205,10 @@ def write_run(archive: Path, model: ModelSpec, run: Run, branch: dict | None, va
         last = min(first + per_file, n_months)  # exclusive
         y0, m0 = run.start_year + first // 12, first % 12 + 1
         y1, m1 = run.start_year + (last - 1) // 12, (last - 1) % 12 + 1
-        name = (f"{variable}_Amon_{model.source_id}_{run.experiment_id}_{run.member}_{GRID_LABEL}_"
-                f"{y0:04d}{m0:02d}-{y1:04d}{m1:02d}.nc")
-        path = folder / name
+        path = folder / f"{stem}_{y0:04d}{m0:02d}-{y1:04d}{m1:02d}.nc"
         nt = last - first
         file_bounds = bounds[first:last]
-        tmp, ds = _atomic_dataset(path)
+        tmp, ds = _atomic_dataset(path, file_format)
         try:
             # the cell areas live in their own fx file (CF §2.6.3, §7.2)
             ds.setncatts(gattrs | {"external_variables": "areacella"})

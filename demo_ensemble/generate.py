@@ -6,6 +6,7 @@ import sys
 import time
 from pathlib import Path
 
+from . import generations
 from .calendar import date_number, month_bounds, month_starts
 from .fields import make_grid, recipes
 from .files import branch_attributes, write_areacella, write_run
@@ -74,7 +75,7 @@ def _parse_grid(grid) -> tuple[int, int]:
 
 
 def generate(root, *, n_models: int = 8, seed: int = 0, grid=DEFAULT_GRID, years: dict | None = None,
-             progress: bool = False, internal_variability: bool = True) -> Path:
+             progress: bool = False, internal_variability: bool = True, mixed: bool = False) -> Path:
     """Write a synthetic CMIP-style archive of invented models under `root`.
 
     Parameters
@@ -88,6 +89,9 @@ def generate(root, *, n_models: int = 8, seed: int = 0, grid=DEFAULT_GRID, years
         {"control": 250, "abrupt": 150, "onepct": 150, "historical": 100, "scenario": 60}
     progress : print one line per model to stderr
     internal_variability : False writes noise-free runs (drift and forced response only), for tests
+    mixed : write every second model (the 2nd, 4th, …) the CMIP5 way (`generations`: its directories, names
+        without grid label, `abrupt4xCO2`, members r1i1p1, `branch_time`, netCDF-3 files), the others as CMIP6;
+        their rows of truth.csv carry the CMIP5 member names
 
     Returns
     -------
@@ -114,10 +118,14 @@ def generate(root, *, n_models: int = 8, seed: int = 0, grid=DEFAULT_GRID, years
         t0 = time.perf_counter()
         series = simulate(model, noise=internal_variability)
         noise_free = series if not internal_variability else simulate(model, noise=False)
-        truth.extend(truth_rows(model, noise_free))
+        era = generations.CMIP5 if mixed and model.index % 2 == 1 else generations.CMIP6
+        rows = truth_rows(model, noise_free)
+        if era == generations.CMIP5:
+            rows = [dict(row, member=generations.member(row["member"])) for row in rows]
+        truth.extend(rows)
         forcing.extend(forcing_rows(model, noise_free))
         field_recipes = recipes(grd, model.control_means, model.polar_amplification)
-        write_areacella(archive, model, grd)
+        write_areacella(archive, model, grd, era)
         runs = {(r.experiment_id, r.member): r for r in model.runs}
         for run in model.runs:
             bounds = month_bounds(run.start_year, 12 * run.n_years, model.time_units, model.calendar)
@@ -129,7 +137,7 @@ def generate(root, *, n_models: int = 8, seed: int = 0, grid=DEFAULT_GRID, years
                                            bounds[0, 0])
             values = series[(run.experiment_id, run.member)].values
             for var in VARIABLES:
-                write_run(archive, model, run, branch, var, field_recipes[var], values[var], grd, bounds)
+                write_run(archive, model, run, branch, var, field_recipes[var], values[var], grd, bounds, era)
         if progress:
             print(f"demo_ensemble: {model.index + 1}/{len(models)} {model.source_id} "
                   f"({len(model.runs)} runs) in {time.perf_counter() - t0:.1f} s", file=sys.stderr, flush=True)

@@ -1,13 +1,16 @@
 """Finding runs in an archive: file names and directories only, no file is opened.
 
-An archive is a tree of CMIP-style NetCDF files, laid out either in the CMIP data
-reference syntax (DRS)::
+An archive is a tree of CMIP-style NetCDF files of either generation, laid out in the CMIP
+data reference syntax (DRS) or flat (all files in one or a few folders)::
 
-    …/<source_id>/<experiment_id>/<member_id>/<table_id>/<variable_id>/<grid_label>/<version>/<file>.nc
+    CMIP6  …/<source_id>/<experiment_id>/<member_id>/<table_id>/<variable_id>/<grid_label>/<version>/
+           <variable_id>_<table_id>_<source_id>_<experiment_id>_<member_id>_<grid_label>[_<start>-<end>].nc
+    CMIP5  …/output1/<institute>/<model>/<experiment>/mon/atmos/Amon/<ensemble>/<version>/<variable>/
+           <variable>_<table>_<model>_<experiment>_<ensemble>[_<start>-<end>].nc
 
-or flat (all files in one or a few folders). Either way the file name carries the facets::
-
-    <variable_id>_<table_id>_<source_id>_<experiment_id>_<member_id>_<grid_label>[_<start>-<end>].nc
+The file name carries the facets either way. A CMIP5 name has no grid label (its runs get grid label
+``""``) and its ensemble member reads ``r<N>i<N>p<N>`` (``r0i0p0`` for fixed fields); the generation
+of each file is recorded as ``mip_era`` (``CMIP5`` or ``CMIP6``) so that roles can be mapped per era.
 
 `scan` groups the files into runs (one model, member and experiment) and lists what it
 could not use in `Catalog.problems`, so nothing is dropped without a word. Whether the
@@ -24,6 +27,9 @@ from .settings import ExtractionSettings
 
 AREA_VARIABLE = "areacella"
 FIXED_TABLE = "fx"
+CMIP5, CMIP6 = "CMIP5", "CMIP6"
+#: CMIP5's ensemble member of fixed fields (no realization, initialization or physics)
+CMIP5_FIXED_MEMBER = "r0i0p0"
 
 # DRS version directories are "v" + date (vYYYYMMDD); some archives use "v1", "v2"
 _VERSION = re.compile(r"^v\d+$")
@@ -43,6 +49,7 @@ class FileFacets:
     grid_label: str
     time_range: str | None
     version: str | None
+    mip_era: str = CMIP6
 
     @property
     def start(self) -> str:
@@ -80,6 +87,8 @@ class RunFiles:
     version: str | None = None
     grid_label: str = ""
     flags: list[str] = field(default_factory=list)
+    mip_era: str = CMIP6
+    origin: str = "netcdf"
 
     @property
     def variables(self) -> list[str]:
@@ -127,16 +136,21 @@ class Catalog:
 def parse_file_name(path: Path) -> FileFacets | None:
     """Facets of one file from its name and (when in a DRS tree) its directories.
 
-    Returns ``None`` when the name does not follow the pattern. CMIP facet values never
-    hold underscores (experiment ids and source ids use hyphens), so splitting on ``_``
-    is unambiguous.
+    Returns ``None`` when the name follows neither pattern. CMIP facet values never hold
+    underscores (experiment ids and source ids use hyphens), so splitting on ``_`` is
+    unambiguous, and the generations are told apart by the number of parts: a CMIP6 name has
+    a grid label (6 parts, 7 with a time range), a CMIP5 name none (5 parts, 6 with a time range
+    — a sixth part made of digits is a date range, never a grid label).
     """
     path = Path(path)
     if path.suffix != ".nc":
         return None
     parts = path.stem.split("_")
-    if len(parts) not in (6, 7) or not all(parts):
+    if not 5 <= len(parts) <= 7 or not all(parts):
         return None
+    era = CMIP6
+    if len(parts) == 5 or (len(parts) == 6 and _TIME_RANGE.match(parts[5])):
+        era, parts = CMIP5, parts[:5] + [""] + parts[5:]
     variable_id, table_id, source_id, experiment_id, member_id, grid_label = parts[:6]
     time_range = None
     if len(parts) == 7:
@@ -152,18 +166,22 @@ def parse_file_name(path: Path) -> FileFacets | None:
         member_id=member_id,
         grid_label=grid_label,
         time_range=time_range,
-        version=_drs_version(path, source_id, experiment_id, member_id, table_id, variable_id, grid_label),
+        version=_drs_version(path),
+        mip_era=era,
     )
 
 
-def _drs_version(path: Path, *facets: str) -> str | None:
+def _drs_version(path: Path) -> str | None:
     """The version directory (``v…``) holding the file, else None (flat archive).
 
-    Whether the directories above agree with the name is not judged here: the file's own
-    global attributes are the authority, checked when it is opened.
+    CMIP6 puts the version last (``…/<grid_label>/<version>/<file>``), CMIP5 before the variable
+    (``…/<ensemble>/<version>/<variable>/<file>``). Whether the other directories agree with the name is
+    not judged here: runs are identified by their names (see `extractor.runs` for the files' attributes).
     """
-    folder = path.parent.name
-    return folder if _VERSION.match(folder) else None
+    for folder in (path.parent.name, path.parent.parent.name):
+        if _VERSION.match(folder):
+            return folder
+    return None
 
 
 def _version_key(version: str | None) -> tuple[int, int]:
@@ -215,7 +233,8 @@ def scan(root: str | Path, settings: ExtractionSettings | None = None) -> Catalo
         if facets is None:
             catalog.problems.append(
                 f"file {path}: name does not follow "
-                "<variable>_<table>_<source>_<experiment>_<member>_<grid>[_<start>-<end>].nc — file skipped, rename it"
+                "<variable>_<table>_<source>_<experiment>_<member>_<grid>[_<start>-<end>].nc (CMIP6) or "
+                "<variable>_<table>_<model>_<experiment>_<ensemble>[_<start>-<end>].nc (CMIP5) — file skipped, rename it"
             )
             continue
         if include and facets.source_id not in include:
@@ -237,7 +256,8 @@ def scan(root: str | Path, settings: ExtractionSettings | None = None) -> Catalo
                 "give monthly fields (a table such as Amon)"
             )
             continue
-        key = (facets.source_id, facets.member_id, facets.experiment_id, facets.variable_id, facets.grid_label)
+        key = (facets.source_id, facets.member_id, facets.experiment_id, facets.variable_id, facets.grid_label,
+               facets.mip_era)
         by_series[key][facets.version].append(facets)
 
     # newest version of each variable
@@ -250,10 +270,10 @@ def scan(root: str | Path, settings: ExtractionSettings | None = None) -> Catalo
     grouped: dict[tuple, dict[str, dict[str, tuple[str | None, list[FileFacets]]]]] = defaultdict(
         lambda: defaultdict(dict)
     )
-    for (model, member, experiment, variable, grid), chosen in newest.items():
-        grouped[(model, member, experiment)][grid][variable] = chosen
+    for (model, member, experiment, variable, grid, era), chosen in newest.items():
+        grouped[(model, member, experiment, era)][grid][variable] = chosen
 
-    for (model, member, experiment), grids in sorted(grouped.items()):
+    for (model, member, experiment, era), grids in sorted(grouped.items()):
         grid = _choose_grid(grids, settings.required_variables)
         for other in sorted(set(grids) - {grid}):
             catalog.problems.append(
@@ -274,6 +294,7 @@ def scan(root: str | Path, settings: ExtractionSettings | None = None) -> Catalo
             files=files,
             version=max(versions, key=_version_key) if versions else None,
             grid_label=grid,
+            mip_era=era,
         )
         for variable in settings.required_variables:
             if variable not in files:
@@ -302,14 +323,19 @@ def _attach_area(run: RunFiles, areas: list[FileFacets]) -> None:
     Cell areas are fixed fields published once per model, typically with the control run,
     so any experiment of the model will do; the same experiment is preferred, then the newest version.
     """
-    candidates = [a for a in areas if a.source_id == run.model and a.grid_label == run.grid_label]
+    candidates = [a for a in areas if a.source_id == run.model and a.grid_label == run.grid_label
+                  and a.mip_era == run.mip_era]
     if not candidates:
         return
 
+    def own(a: FileFacets) -> bool:
+        # CMIP5 publishes fixed fields under member r0i0p0 only: that is every member's own
+        return a.member_id == run.member or (a.mip_era == CMIP5 and a.member_id == CMIP5_FIXED_MEMBER)
+
     def preference(a: FileFacets):
-        return (a.member_id == run.member, a.experiment_id == run.experiment_id, _version_key(a.version), str(a.path))
+        return (own(a), a.experiment_id == run.experiment_id, _version_key(a.version), str(a.path))
 
     best = max(candidates, key=preference)
     run.areacella = best.path
-    if best.member_id != run.member:
+    if not own(best):
         run.flags.append("areacella_other_member")

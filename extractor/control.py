@@ -65,7 +65,9 @@ def branch_year(experiment_attrs: Mapping, control: xr.Dataset) -> tuple[int, li
     """Control calendar year in which the experiment starts.
 
     ``branch_time_in_parent`` is decoded with ``parent_time_units`` in the control's calendar
-    (``control.attrs["calendar"]``, the parent's) through cftime. The branch year is the year
+    (``control.attrs["calendar"]``, the parent's) through cftime. A CMIP5 run gives its ``branch_time``
+    in the parent's own time units without naming them (``branch_time_convention = "CMIP5"``, set by
+    `extractor.runs`): the control's ``time_units`` are used. The branch year is the year
     containing that instant, except that an instant within the last day of a year counts as the
     start of the next year (some models record the branch at the end of the last day, e.g.
     31 Dec 24:00 as 31 Dec 12:00 or 23:59); a branch on 1 Jan Y 00:00 is year Y.
@@ -85,6 +87,8 @@ def branch_year(experiment_attrs: Mapping, control: xr.Dataset) -> tuple[int, li
     who = _describe(experiment_attrs)
     branch_time = _scalar(experiment_attrs.get("branch_time_in_parent"))
     units = _scalar(experiment_attrs.get("parent_time_units"))
+    if _missing(units) and experiment_attrs.get("branch_time_convention") == "CMIP5":
+        units = _scalar(control.attrs.get("time_units"))
     if _missing(branch_time) or _missing(units):
         return int(control_years[0]), [BRANCH_ASSUMED]
     calendar = control.attrs.get("calendar")

@@ -120,6 +120,9 @@ def _extract_locked(archive, out_dir: Path, settings: ExtractionSettings, *, for
     for label, err in errors.items():
         broken[label] = err if isinstance(err, ArchiveError) else read_failure(runs_by_label[label], err)
     for label, ds in series.items():
+        if ds.attrs.get("attribute_mismatch"):
+            notes.append(f"{label}: file attributes disagree with the path, which names the run (flag "
+                         f"attribute_mismatch): {ds.attrs['attribute_mismatch']}")
         empty = empty_steps(ds, runs_by_label[label])
         if empty is not None:
             broken[label] = empty
@@ -177,9 +180,10 @@ def _finish_unit(unit: Unit, series: dict, settings: ExtractionSettings, out_dir
         "source": f"sensemble {__version__}",
         "model": unit.model,
         "member": unit.member,
-        "role_control": settings.control,
-        "role_abrupt": settings.abrupt,
-        "role_onepct": settings.onepct,
+        "role_control": settings.roles(unit.mip_era)[0],
+        "role_abrupt": settings.roles(unit.mip_era)[1],
+        "role_onepct": settings.roles(unit.mip_era)[2],
+        "mip_era": unit.mip_era,
         "scenarios": ";".join(science.scenarios),
         "fingerprint": fp,
         "sensitivity_row": json.dumps(row, sort_keys=True),

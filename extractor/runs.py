@@ -2,8 +2,8 @@
 
 Every check raises `ArchiveError` naming the model, the file and the problem, so a batch
 can record the failure of this run and go on with the others. Fallbacks that are safe
-(a missing calendar read as CF's default, file attributes overruling the path) are kept
-as quality flags in ``attrs["flags"]``. Files are opened read-only and stay lazy (dask);
+(a missing calendar read as CF's default, file attributes disagreeing with the path, which
+names the run) are kept as quality flags in ``attrs["flags"]``. Files are opened read-only and stay lazy (dask);
 nothing in the archive is modified.
 """
 from __future__ import annotations
@@ -47,8 +47,9 @@ CELSIUS = {"degC", "deg_C", "Celsius", "celsius", "degree_Celsius", "degrees_Cel
 # spellings of W m-2 once "**"/"^" are dropped and separators reduced to one space
 FLUX_UNITS = {"W m-2", "W/m2", "W / m2", "Wm-2", "W m -2", "watt m-2", "watts m-2", "W/m 2"}
 
-# global attributes checked against the path: attribute name → RunFiles field
-_IDENTITY = {"source_id": "model", "experiment_id": "experiment_id", "variant_label": "member"}
+# global attributes naming the run, checked against the path: attribute name → RunFiles field.
+# CMIP5 files name the model `model_id` and give the member as three integers (see `_cmip5_member`).
+_IDENTITY = {"source_id": "model", "model_id": "model", "experiment_id": "experiment_id", "variant_label": "member"}
 
 
 def open_run(
@@ -95,7 +96,7 @@ def open_run(
     months: dict[str, np.ndarray] = {}
     first: dict[str, xr.Dataset] = {}
     bounds: dict[str, xr.DataArray] = {}
-    identity: dict[str, tuple[str, Path]] = {}
+    mismatches: list[str] = []
     calendar: tuple[str, Path] | None = None
     for variable, paths in run.files.items():
         opened = []
@@ -118,7 +119,7 @@ def open_run(
                     run, path, f"calendar {file_calendar!r} differs from {calendar[0]!r} in {calendar[1].name}",
                     "all files of a run must use one calendar",
                 )
-            _collect_identity(ds, path, run, identity)
+            _collect_identity(ds, path, run, mismatches)
             opened.append((ds, _month_index(ds, path, run), path))
         opened.sort(key=lambda item: item[1][0])
         _check_joins(opened, run)
@@ -166,7 +167,7 @@ def open_run(
             ds[f"{coord}_bnds"] = template[name].load()
             ds[coord].attrs["bounds"] = f"{coord}_bnds"
 
-    attrs = _run_attributes(run, identity, template, flags)
+    attrs = _run_attributes(run, mismatches, template, flags)
     attrs["calendar"] = CALENDARS[calendar[0]] if calendar else "standard"
     attrs["time_units"] = str(template["time"].encoding.get("units", ""))
     attrs["files"] = ";".join(str(p) for p in run.all_files())
@@ -388,37 +389,45 @@ def open_area(run: RunFiles) -> xr.DataArray | None:
 # ---------------------------------------------------------------------------- identity
 
 
-def _collect_identity(ds: xr.Dataset, path: Path, run: RunFiles, seen: dict) -> None:
-    """Identity attributes must agree between the files of a run."""
-    for attr in _IDENTITY:
-        value = ds.attrs.get(attr)
-        if value is None:
-            continue
-        value = str(value).strip()
-        if attr in seen and seen[attr][0] != value:
-            raise _error(
-                run, path, f"global attribute {attr}={value!r} but {seen[attr][1].name} has {seen[attr][0]!r}",
-                "the files of one run must agree on who they are",
-            )
-        seen.setdefault(attr, (value, path))
+def _cmip5_member(attrs: dict) -> str | None:
+    """CMIP5's ensemble member ``r<realization>i<initialization_method>p<physics_version>``, when all three are given."""
+    try:
+        parts = [int(np.asarray(attrs[k]).ravel()[0]) for k in ("realization", "initialization_method", "physics_version")]
+    except (KeyError, TypeError, ValueError, IndexError):
+        return None
+    return "r{}i{}p{}".format(*parts)
 
 
-def _run_attributes(run: RunFiles, identity: dict, template: xr.Dataset, flags: list[str]) -> dict:
-    attrs = {"model": run.model, "member": run.member, "experiment_id": run.experiment_id}
-    mismatches = []
-    for attr, field_name in _IDENTITY.items():
-        if attr in identity:
-            value = identity[attr][0]
-            if value != getattr(run, field_name):
-                # DESIGN.md: the file's own global attributes win over the path
-                mismatches.append(f"{attr}={value} (path: {getattr(run, field_name)})")
-                attrs[field_name] = value
+def _collect_identity(ds: xr.Dataset, path: Path, run: RunFiles, mismatches: list[str]) -> None:
+    """Note every identity attribute of one file that disagrees with the run's path.
+
+    Runs are identified by their DRS path and file names (issue 11: one file's typo in ``source_id`` must not
+    fail a model), so a disagreement is recorded with the file's name, never refused.
+    """
+    found = {attr: str(ds.attrs[attr]).strip() for attr in _IDENTITY if ds.attrs.get(attr) is not None}
+    if "variant_label" not in found and (member := _cmip5_member(ds.attrs)) is not None:
+        found["realization/initialization_method/physics_version"] = member
+    for attr, value in found.items():
+        expected = getattr(run, _IDENTITY.get(attr, "member"))
+        if value != expected:
+            mismatches.append(f"{Path(path).name}: {attr}={value!r} (path: {expected!r})")
+
+
+def _run_attributes(run: RunFiles, mismatches: list[str], template: xr.Dataset, flags: list[str]) -> dict:
+    attrs = {"model": run.model, "member": run.member, "experiment_id": run.experiment_id, "mip_era": run.mip_era,
+             "origin": run.origin}
     if mismatches:
+        # the path names the run; the files' own attributes are kept for the report
         flags.append("attribute_mismatch")
-        attrs["attribute_mismatch"] = "; ".join(mismatches)
+        attrs["attribute_mismatch"] = "; ".join(dict.fromkeys(mismatches))
     attrs["parent_experiment_id"] = str(template.attrs.get("parent_experiment_id", "")).strip()
     attrs["parent_time_units"] = str(template.attrs.get("parent_time_units", "")).strip()
     branch = template.attrs.get("branch_time_in_parent")
+    if branch is None and template.attrs.get("branch_time") is not None:
+        # CMIP5: `branch_time` is in the parent's own time units, which the file does not repeat
+        # (no parent_time_units); `extractor.control.branch_year` takes them from the control run
+        branch = template.attrs["branch_time"]
+        attrs["branch_time_convention"] = "CMIP5"
     if branch is not None:
         try:
             attrs["branch_time_in_parent"] = float(np.asarray(branch, dtype=np.float64).ravel()[0])

@@ -57,24 +57,28 @@ def anomalies(run_annual: xr.Dataset, control_annual: xr.Dataset, settings: Extr
     return anomalies, list(flags) + list(more)
 
 
-def scenario_chains(annual: dict[str, xr.Dataset], settings: ExtractionSettings) -> tuple[dict[str, xr.Dataset],
-                                                                                          list[str]]:
-    """Runs other than the control, abrupt and 1 % roles, joined to their parents up to the control."""
+def scenario_chains(annual: dict[str, xr.Dataset], settings: ExtractionSettings,
+                    control_id: str | None = None) -> tuple[dict[str, xr.Dataset], list[str]]:
+    """Runs other than the control, abrupt and 1 % roles, joined to their parents up to the control.
+
+    ``control_id``: the control's experiment id (default ``settings.control``; a CMIP5 unit's may differ).
+    """
     flags = []
+    control_id = control_id or settings.control
     by_id = {ds.attrs.get("experiment_id", k): ds for k, ds in annual.items()}
     children = {}
     for exp_id, ds in by_id.items():
         parent = ds.attrs.get("parent_experiment_id", "")
-        if parent and parent != settings.control and parent in by_id:
+        if parent and parent != control_id and parent in by_id:
             children.setdefault(parent, []).append(exp_id)
     chains = {}
     for exp_id, ds in by_id.items():
         parent = ds.attrs.get("parent_experiment_id", "")
-        if parent == settings.control:
+        if parent == control_id:
             if exp_id in children:
                 continue  # extracted joined to its continuations
             chains[exp_id] = ds
-        elif parent in by_id and by_id[parent].attrs.get("parent_experiment_id") == settings.control:
+        elif parent in by_id and by_id[parent].attrs.get("parent_experiment_id") == control_id:
             chains[exp_id] = join_chain(by_id[parent], ds)
         else:
             flags.append(f"unlinked_{safe_name(exp_id)}")
@@ -95,7 +99,8 @@ def _noise(residuals: xr.Dataset, name: str) -> float | None:
 def fit_row(unit: Unit, abrupt: xr.Dataset | None, tcr_value: float | None, control_annual: xr.Dataset,
             residuals: xr.Dataset, settings: ExtractionSettings, flags: list[str]) -> SensitivityRow:
     """The Gregory fits of the abrupt anomalies (if any), the TCR and the quality flags as one table row."""
-    values = {"model": unit.model, "member": unit.member, "tcr": tcr_value}
+    values = {"model": unit.model, "member": unit.member, "tcr": tcr_value, "mip_era": unit.mip_era,
+              "origin": unit.control.origin if unit.control is not None else None}
     fit = None
     if abrupt is not None:
         dT, dN = abrupt["tas"], abrupt["rtnt"]
@@ -152,7 +157,7 @@ def unit_science(unit: Unit, series: dict[str, xr.Dataset], settings: Extraction
         residuals = control_residuals(control, order=settings.drift_order)
     except ControlError as err:
         raise run_error(err, unit.control, control, "supply a longer control run") from None
-    groups = {settings.control: series_group(residuals, "control")}
+    groups = {unit.control.experiment_id: series_group(residuals, "control")}
 
     abrupt_anom = tcr_value = None
     if unit.abrupt is not None:
@@ -173,7 +178,7 @@ def unit_science(unit: Unit, series: dict[str, xr.Dataset], settings: Extraction
 
     others = {r.experiment_id: annual[r.experiment_id] for r in unit.others}
     try:
-        chains, more = scenario_chains(others, settings)
+        chains, more = scenario_chains(others, settings, unit.control.experiment_id)
     except ControlError as err:
         raise ArchiveError(message(err), model=unit.model, member=unit.member,
                            hint="check parent_experiment_id and the years of the scenario runs, or leave them out "

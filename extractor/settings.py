@@ -27,6 +27,10 @@ class ExtractionSettings:
     control: str = "piControl"
     abrupt: str = "abrupt-4xCO2"
     onepct: str = "1pctCO2"
+    # the same roles in CMIP5 runs (told apart by their file names), so that a mixed archive needs no config
+    cmip5_control: str = "piControl"
+    cmip5_abrupt: str = "abrupt4xCO2"
+    cmip5_onepct: str = "1pctCO2"
     # None: every other experiment whose parent chain reaches the control
     scenarios: tuple[str, ...] | None = None
     include_models: tuple[str, ...] = ()
@@ -73,3 +77,9 @@ class ExtractionSettings:
         "poor_fit_r2": [Interval(Real, 0, 1, closed="both")],
         "ecs_max": _POSITIVE,
     }
+
+    def roles(self, mip_era: str = "CMIP6") -> tuple[str, str, str]:
+        """Experiment ids of the control, abrupt and 1 % roles for runs of ``mip_era`` (CMIP5 or CMIP6)."""
+        if mip_era == "CMIP5":
+            return self.cmip5_control, self.cmip5_abrupt, self.cmip5_onepct
+        return self.control, self.abrupt, self.onepct

@@ -19,6 +19,7 @@ class Unit:
     onepct: RunFiles | None
     others: list[RunFiles] = field(default_factory=list)
     flags: list[str] = field(default_factory=list)
+    mip_era: str = "CMIP6"  # the generation whose role ids matched (CMIP5 or CMIP6)
 
     @property
     def key(self) -> str:
@@ -29,28 +30,37 @@ class Unit:
 
 
 def plan_units(catalog: Catalog, settings: ExtractionSettings) -> tuple[list[Unit], list[Failure]]:
-    """Group the catalogue into (model, member) units, each with its control."""
+    """Group the catalogue into (model, member) units, each with its control.
+
+    Roles are matched per generation: CMIP5 runs by ``settings.roles("CMIP5")`` (``abrupt4xCO2``, …),
+    the others by the CMIP6 ids, so one batch takes a mixed archive as it is.
+    """
     units, failures = [], []
     for model in catalog.models():
-        controls = [r for r in catalog.runs_of(model) if r.experiment_id == settings.control]
-        for member in catalog.members(model):
-            runs = catalog.runs_of(model, member)
-            non_control = [r for r in runs if r.experiment_id != settings.control]
-            if not non_control:
-                continue
-            flags = []
-            control = next((r for r in controls if r.member == member), None)
-            if control is None and len(controls) == 1:
-                control = controls[0]
-                flags.append("control_other_member")
-            if control is None:
-                why = (f"no {settings.control} run" if not controls else
-                       f"{settings.control} has several members ({', '.join(r.member for r in controls)}) and none is {member}")
-                failures.append(Failure(model, member, "model", f"model {model} member {member}: {why} — "
-                                        "add the control run or map the control role in the config"))
-                continue
-            abrupt = next((r for r in non_control if r.experiment_id == settings.abrupt), None)
-            onepct = next((r for r in non_control if r.experiment_id == settings.onepct), None)
-            others = [r for r in non_control if r.experiment_id not in (settings.abrupt, settings.onepct)]
-            units.append(Unit(model, member, control, abrupt, onepct, others, flags))
+        for era in sorted({r.mip_era for r in catalog.runs_of(model)}):
+            control_id, abrupt_id, onepct_id = settings.roles(era)
+            of_era = [r for r in catalog.runs_of(model) if r.mip_era == era]
+            controls = [r for r in of_era if r.experiment_id == control_id]
+            for member in sorted({r.member for r in of_era}):
+                non_control = [r for r in of_era if r.member == member and r.experiment_id != control_id]
+                if not non_control:
+                    continue
+                flags = []
+                control = next((r for r in controls if r.member == member), None)
+                if control is None and len(controls) == 1:
+                    control = controls[0]
+                    flags.append("control_other_member")
+                if control is None:
+                    why = (f"no {control_id} run" if not controls else
+                           f"{control_id} has several members ({', '.join(r.member for r in controls)}) and none "
+                           f"is {member}")
+                    role_key = "cmip5_control" if era == "CMIP5" else "control"
+                    failures.append(Failure(model, member, "model", f"model {model} member {member}: {why} — "
+                                            f"add the control run or map the control role ([archive] {role_key}) "
+                                            "in the config"))
+                    continue
+                abrupt = next((r for r in non_control if r.experiment_id == abrupt_id), None)
+                onepct = next((r for r in non_control if r.experiment_id == onepct_id), None)
+                others = [r for r in non_control if r.experiment_id not in (abrupt_id, onepct_id)]
+                units.append(Unit(model, member, control, abrupt, onepct, others, flags, mip_era=era))
     return units, failures

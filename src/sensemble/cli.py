@@ -202,6 +202,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--years", default="", metavar="ROLE=N[,ROLE=N]",
                    help="run lengths in years by role (control, abrupt, onepct, historical, scenario), "
                         "e.g. control=60,abrupt=40 for a quick archive")
+    p.add_argument("--mixed", action="store_true",
+                   help="write every second model the CMIP5 way (its directories, names, ids and attributes)")
     p.add_argument("--quiet", action="store_true")
 
     p = sub.add_parser("extract", help="archive → sensitivity table, series, report, figures")
@@ -319,7 +321,7 @@ def cmd_demo_archive(args, console: Console) -> int:
     from sensemble import demo as demo_ensemble
     from sensemble.demo.generate import _parse_years
 
-    kwargs = {"n_models": args.models, "seed": args.seed}
+    kwargs = {"n_models": args.models, "seed": args.seed, "mixed": args.mixed}
     if args.grid:
         kwargs["grid"] = args.grid
     try:

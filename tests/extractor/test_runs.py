@@ -211,23 +211,29 @@ def test_variables_trimmed_to_common_period_with_flag(tmp_path, cmip):
     assert "time_trimmed" in ds.attrs["flags"]
 
 
-def test_attributes_win_over_path_with_flag(tmp_path, cmip):
+def test_path_names_the_run_and_disagreeing_attributes_are_flagged(tmp_path, cmip):
+    # issue 11 (replaces "attributes win"): runs are identified by their DRS path; the file's attribute is
+    # recorded with the file's name and the run flagged attribute_mismatch (common practice, no source)
     attrs = {"source_id": "TESTMODEL-9", "experiment_id": "piControl", "variant_label": MEMBER}
     run = single(tmp_path, cmip, "tas", attrs=attrs)
     ds = open_run(run, required=())
-    assert ds.attrs["model"] == "TESTMODEL-9"
+    assert ds.attrs["model"] == "TESTMODEL-1"
     assert "attribute_mismatch" in ds.attrs["flags"].split(";")
-    assert "TESTMODEL-1" in ds.attrs["attribute_mismatch"]
+    assert "TESTMODEL-1" in ds.attrs["attribute_mismatch"] and "TESTMODEL-9" in ds.attrs["attribute_mismatch"]
+    assert run.files["tas"][0].name in ds.attrs["attribute_mismatch"]
 
 
-def test_files_disagreeing_on_identity_refused(tmp_path, cmip):
+def test_one_file_disagreeing_on_identity_is_named_not_refused(tmp_path, cmip):
+    # issue 11: one file's source_id typo used to fail the model ("the files of one run must agree")
     a = cmip.write_monthly_file(tmp_path / "tas_Amon_TESTMODEL-1_piControl_r1i1p1f1_gn_185001-185012.nc", "tas", nyears=1,
                                 attrs={"source_id": MODEL})
     b = cmip.write_monthly_file(tmp_path / "tas_Amon_TESTMODEL-1_piControl_r1i1p1f1_gn_185101-185112.nc", "tas", nyears=1,
                                 start_year=1851, attrs={"source_id": "TESTMODEL-2"})
     run = RunFiles(MODEL, MEMBER, "piControl", {"tas": [a, b]})
-    with pytest.raises(ArchiveError, match="source_id"):
-        open_run(run, required=())
+    ds = open_run(run, required=())
+    assert ds.attrs["model"] == MODEL and ds.sizes["time"] == 24
+    assert "attribute_mismatch" in ds.attrs["flags"].split(";")
+    assert b.name in ds.attrs["attribute_mismatch"] and a.name not in ds.attrs["attribute_mismatch"]
 
 
 def test_corrupt_file_refused_with_one_line_message(tmp_path):

@@ -272,7 +272,7 @@ def test_grids_differing_between_variables_of_a_run(clean, broken_copy, tmp_path
 
 
 def test_attributes_disagreeing_with_the_path_are_flagged(clean, broken_copy, tmp_path):
-    # DESIGN.md: the files' own global attributes win over the path; the disagreement is a flag
+    # issue 11: the DRS path names the run (the files' attributes are reported); the disagreement is a flag
     for variable in FLUXES:
         set_attrs(file_of(broken_copy, variable=variable), source_id="CEDAR-9", experiment_id="abrupt-5xCO2")
     result = extract_broken(broken_copy, tmp_path)

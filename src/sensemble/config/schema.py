@@ -55,7 +55,7 @@ SECTIONS = ("archive", "extraction", "emulator", "prediction", "compute", "outpu
 # ExtractionSettings fields that describe the archive rather than the fits: they are read
 # from [archive]. Names not (or no longer) in ExtractionSettings are skipped.
 ARCHIVE_FIELDS = (
-    "control", "abrupt", "onepct", "scenarios",
+    "control", "abrupt", "onepct", "cmip5_control", "cmip5_abrupt", "cmip5_onepct", "scenarios",
     "include_models", "exclude_models", "variables", "required_variables",
 )
 #: BatchConfig attribute → the settings class it holds.

@@ -10,10 +10,11 @@ COLUMNS = (
     "ecs_eff_q95", "feedback_early", "feedback_late", "feedback_change", "ecs_late", "curvature", "tcr",
     "n_years", "flags",
 )
-EXTRA_COLUMNS = ("feedback_lw_cs", "feedback_sw_cs", "feedback_cre", "erf_4x_odr", "feedback_odr", "ecs_eff_odr")
+EXTRA_COLUMNS = ("feedback_lw_cs", "feedback_sw_cs", "feedback_cre", "erf_4x_odr", "feedback_odr", "ecs_eff_odr",
+                 "mip_era", "origin")
 ALL_COLUMNS = COLUMNS + EXTRA_COLUMNS
 #: columns that hold text; every other column is a number (an empty cell when it could not be computed)
-TEXT_COLUMNS = ("model", "member", "flags")
+TEXT_COLUMNS = ("model", "member", "flags", "mip_era", "origin")
 
 #: units and long names of the numeric columns
 COLUMN_META = {
@@ -42,6 +43,8 @@ TEXT_META = {
     "model": "source_id of the model",
     "member": "variant_label of the member",
     "flags": "quality flags, semicolon-separated",
+    "mip_era": "generation of the model's runs (CMIP5 or CMIP6), from the file names or the catalogue",
+    "origin": "where the runs were read: netcdf files, zarr stores, or an esm catalogue (with its path)",
 }
 NUMERIC = tuple(c for c in ALL_COLUMNS if c not in TEXT_COLUMNS)
 
@@ -78,6 +81,8 @@ class SensitivityRow:
     erf_4x_odr: float | None = None
     feedback_odr: float | None = None
     ecs_eff_odr: float | None = None
+    mip_era: str | None = None
+    origin: str | None = None
 
     def __post_init__(self):
         # plain Python numbers (numpy scalars do not survive JSON), whole years as int

@@ -54,10 +54,9 @@ def plan_units(catalog: Catalog, settings: ExtractionSettings) -> tuple[list[Uni
                     why = (f"no {control_id} run" if not controls else
                            f"{control_id} has several members ({', '.join(r.member for r in controls)}) and none "
                            f"is {member}")
-                    role_key = "cmip5_control" if era == "CMIP5" else "control"
                     failures.append(Failure(model, member, "model", f"model {model} member {member}: {why} — "
-                                            f"add the control run or map the control role ([archive] {role_key}) "
-                                            "in the config"))
+                                            "add the control run or map the control role in the config"
+                                            + (" ([archive] cmip5_control)" if era == "CMIP5" else "")))
                     continue
                 abrupt = next((r for r in non_control if r.experiment_id == abrupt_id), None)
                 onepct = next((r for r in non_control if r.experiment_id == onepct_id), None)

@@ -25,28 +25,12 @@ import pytest
 from compliance_checker.runner import CheckSuite
 
 from sensemble.contract.cf import CONVENTIONS
-from tests.cli.test_run import run_cli, shared_batch
+from tests.cli.test_run import BATCH_TOML, run_cli, shared_batch
 
 SUITE = "cf:1.11"
 ERROR, WARNING = 3, 2  # the checker's priorities (BaseCheck.HIGH, BaseCheck.MEDIUM)
 # The checker's own defect, not the file's: it indexes `dimensions["time"]` in every group (see the docstring).
 GROUP_DIMENSION_CHECK = "check_invalid_same_named_dimension_across_groups"
-
-CLEAR_SKY_TOML = """\
-[archive]
-include_models = ["{model}"]
-
-[extraction]
-fit_years = [1, 40]
-early_years = [1, 10]
-late_years = [11, 40]
-tcr_years = [11, 30]
-bootstrap_samples = 20
-orthogonal_fit = true
-
-[output]
-figures = false
-"""
 
 
 @pytest.fixture(scope="module")
@@ -105,7 +89,12 @@ def clear_sky(batch, tmp_path_factory) -> Path:
     """The extraction folder of one model of the shared archive with every variable and the orthogonal fit."""
     model = sorted(p.name for p in (batch.root / "archive").iterdir() if p.is_dir())[0]
     root = tmp_path_factory.mktemp("cf-clear-sky")
-    (root / "extract.toml").write_text(CLEAR_SKY_TOML.format(model=model))
+    # the batch's config (windows that fit its short runs), with every variable, one model and the orthogonal fit
+    only_required = 'variables = ["tas", "rsdt", "rsut", "rlut"]'
+    assert only_required in BATCH_TOML
+    config = BATCH_TOML.replace(only_required, f'include_models = ["{model}"]').replace(
+        "[extraction]\n", "[extraction]\northogonal_fit = true\n")
+    (root / "extract.toml").write_text(config)
     status, _, stderr = run_cli("extract", batch.root / "archive", "--out", root / "out", "--config",
                                 root / "extract.toml", "--workers", "1", "--quiet")
     assert status == 0, stderr

@@ -1,11 +1,6 @@
-"""Archive → drift-corrected global annual means → Gregory sensitivities, curvature, TCR.
+"""Extractor stage: archive → drift-corrected global annual means → Gregory sensitivities, curvature, TCR.
 
-The public entry point is `extractor.extract`; each step is its own module (see DEVELOPERS.md).
+From Python use `sensemble.extract` (settings checked, table and series returned); the batch entry it runs is
+`sensemble.extractor.pipeline.extract`. Each step is its own module (see DEVELOPERS.md). Nothing is imported here,
+so that `sensemble.extractor.settings` stays light for the config reader.
 """
-
-
-def extract(*args, **kwargs):
-    """Run a whole extraction (see `extractor.pipeline.extract`)."""
-    from .pipeline import extract as _extract
-
-    return _extract(*args, **kwargs)

@@ -246,7 +246,7 @@ def _version() -> str:
 
 def _run_extract(archive, out, config, console: Console):
     """Extraction under the configured compute back-end; per-run table and failures reported."""
-    from sensemble import extractor
+    from sensemble.extractor import pipeline
 
     from .compute import open_compute
 
@@ -254,7 +254,7 @@ def _run_extract(archive, out, config, console: Console):
     bar = not quiet and sys.stdout.isatty()  # a redrawn bar only where it can be redrawn
     coarse = _CoarseProgress(console, terminal=not quiet and not bar)
     with open_compute(config.compute), coarse.callback:
-        result = extractor.extract(archive, out, config.extraction, force=config.output.force, progress=bar,
+        result = pipeline.extract(archive, out, config.extraction, force=config.output.force, progress=bar,
                                    figures=config.output.figures, log=console)
     console(f"extraction: {len(result.rows)} rows ({len(result.cached)} reused from {Path(out) / 'series'}), "
             f"{len(result.failures)} failed, {result.seconds:.1f} s → {Path(out) / 'sensitivity.csv'}")

@@ -263,12 +263,12 @@ def test_emulate_bad_usage(tmp_path_factory, tmp_path):
 
 
 def test_an_unexpected_error_is_one_line_with_the_traceback_in_the_log(tiny, tmp_path, monkeypatch):
-    from sensemble import extractor
+    from sensemble.extractor import pipeline
 
     def broken(*args, **kwargs):
         raise RuntimeError("something nobody planned for")
 
-    monkeypatch.setattr(extractor, "extract", broken)
+    monkeypatch.setattr(pipeline, "extract", broken)
     archive, config = tiny
     out = tmp_path / "out"
     status, stdout, stderr = run_cli("extract", archive, "--out", out, "--config", config, "--quiet")

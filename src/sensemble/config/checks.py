@@ -10,6 +10,7 @@ from pathlib import Path
 
 from sensemble.compute import JOB_QUEUE_KINDS
 from sensemble.contract.constraints import format_value
+from sensemble.contract.table import ALL_COLUMNS, TEXT_COLUMNS
 from sensemble.emulator.settings import EmulatorSettings
 from sensemble.extractor.settings import SENSITIVITY_VARIABLES
 
@@ -81,9 +82,7 @@ def _check_emulator(config: BatchConfig, source: str) -> tuple[str, ...]:
 
 def _table_columns() -> tuple[str, ...]:
     """The sensitivity table's numeric columns: what the emulator can take as inputs."""
-    from sensemble.extractor.table import NUMERIC
-
-    return NUMERIC
+    return tuple(c for c in ALL_COLUMNS if c not in TEXT_COLUMNS)
 
 
 def _check_cases(config: BatchConfig, source: str, inputs: tuple[str, ...]) -> None:

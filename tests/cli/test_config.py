@@ -162,6 +162,13 @@ def test_ranges_and_cross_checks(tmp_path, text, words):
         ('[prediction]\ngrid = { ecs_ef = [2.0, 3.0] }\n',
          "[prediction] grid: 'ecs_ef' is not an emulator input; did you mean 'ecs_eff'?"),
         ('[prediction]\ngrid = { ecs_eff = ["high"] }\n', "grid: ecs_eff must be a non-empty array of numbers"),
+        ('[archive]\nabrupt = "piControl"\n', '[archive] abrupt and control both name "piControl"'),
+        ('[archive]\nonepct = ""\n', '[archive] onepct must name an experiment id, got ""; the default is "1pctCO2"'),
+        ('[archive]\nscenarios = ["ssp-x", "abrupt-4xCO2"]\n',
+         '[archive] scenarios lists "abrupt-4xCO2", which is the abrupt experiment'),
+        ('[archive]\nscenarios = ["demo-rise"]\n[emulator]\nscenario = "demo-rsie"\n',
+         '[emulator] scenario "demo-rsie" is not among the [archive] scenarios that are read; '
+         'the closest valid value is "demo-rise"'),
     ],
 )
 def test_fail_fast_names_the_key_and_the_closest_valid_value(tmp_path, text, words):

@@ -48,6 +48,7 @@ def _check_extraction(config: BatchConfig, source: str) -> None:
     both = sorted(set(getattr(ex, "include_models", ())) & set(getattr(ex, "exclude_models", ())))
     if both:
         raise ConfigError(f"{source}: [archive] model {both[0]} is in both include_models and exclude_models")
+    _check_roles(ex, source)
     required = tuple(getattr(ex, "required_variables", SENSITIVITY_VARIABLES))
     missing = [v for v in SENSITIVITY_VARIABLES if v not in required]
     if missing:
@@ -58,8 +59,35 @@ def _check_extraction(config: BatchConfig, source: str) -> None:
         )
 
 
+def _check_roles(ex, source: str) -> None:
+    """Each role names its own experiment; a scenario is not one of the roles."""
+    roles = {name: getattr(ex, name) for name in ("control", "abrupt", "onepct") if hasattr(ex, name)}
+    for name, experiment in roles.items():
+        if not experiment.strip():
+            raise ConfigError(f"{source}: {where('extraction', name)} must name an experiment id, got \"\"; "
+                              f"the default is {format_value(type(ex)().__getattribute__(name))}")
+    seen: dict[str, str] = {}
+    for name, experiment in roles.items():
+        if experiment in seen:
+            raise ConfigError(f"{source}: [archive] {name} and {seen[experiment]} both name {format_value(experiment)}; "
+                              "each role needs its own experiment id")
+        seen[experiment] = name
+    for experiment in getattr(ex, "scenarios", None) or ():
+        if experiment in seen:
+            raise ConfigError(f"{source}: [archive] scenarios lists {format_value(experiment)}, which is the "
+                              f"{seen[experiment]} experiment; list only scenario experiment ids")
+
+
 def _check_emulator(config: BatchConfig, source: str) -> tuple[str, ...]:
     em = config.emulator
+    scenarios = getattr(config.extraction, "scenarios", None)
+    wanted = getattr(em, "scenario", None)
+    if isinstance(wanted, str) and scenarios is not None and wanted not in scenarios:
+        close = difflib.get_close_matches(wanted, scenarios, n=1)
+        hint = f"the closest valid value is {format_value(close[0])}" if close else \
+            f"add it to [archive] scenarios {format_value(list(scenarios))}"
+        raise ConfigError(f"{source}: [emulator] scenario {format_value(wanted)} is not among the [archive] scenarios "
+                          f"that are read; {hint}")
     inputs = tuple(getattr(em, "inputs", ()))
     if "inputs" in field_names(EmulatorSettings):
         if not inputs:

@@ -11,6 +11,14 @@ and a value is valid when it satisfies any constraint of its list. A constraint 
 Whoever reads the parameters (an estimator's `fit`, the TOML config reader) calls `problem` or `check_parameters`
 and gets one line naming the parameter, what it must be, the value given and, where one exists, the closest valid
 value. This module imports nothing of ours.
+
+>>> from numbers import Integral
+>>> problem(-3, [Interval(Integral, 0, None, closed="left")])
+'must be >= 0, got -3; the closest valid value is 0'
+>>> problem("gausian", [Options("auto", "gaussian")])
+'must be one of "auto", "gaussian", got "gausian"; the closest valid value is "gaussian"'
+>>> problem(None, [str, None]) is None
+True
 """
 from __future__ import annotations
 

@@ -19,14 +19,13 @@ from sensemble.contract.names import safe_name
 
 from .cache import cached_row, file_stats, fingerprint, settings_record
 from .catalog import scan
-from .diagnose import empty_steps, message, nothing_to_extract, one_line, read_failure
+from .diagnose import message, nothing_to_extract, one_line
 from .errors import ArchiveError
 from .figures import ensemble_summary, gregory_plot
 from .lock import output_lock
 from .outcome import ExtractionResult, Failure
 from .report import write_report
-from .runs import global_mean_series
-from .schedule import compute_runs
+from .schedule import reduce_runs
 from .science import unit_science
 from .series import write_series
 from .settings import ExtractionSettings
@@ -101,31 +100,14 @@ def _extract_locked(archive, out_dir: Path, settings: ExtractionSettings, *, for
     if cached:
         log(f"reusing {len(cached)} finished runs from {out_dir / 'series'} (use --force to recompute)")
 
-    lazy, broken, runs_by_label = {}, {}, {}
-    for unit in todo:
-        for run in unit.runs():
-            if run.label in lazy or run.label in broken:
-                continue
-            runs_by_label[run.label] = run
-            try:
-                lazy[run.label] = global_mean_series(run, required=settings.required_variables)
-            except ArchiveError as err:
-                broken[run.label] = err
-            except Exception as err:  # noqa: BLE001 — recorded, never hidden
-                broken[run.label] = ArchiveError(f"could not be read ({type(err).__name__}: {err})",
-                                                 path=";".join(map(str, run.all_files()[:1])), model=run.model)
+    runs = list({run.label: run for unit in todo for run in unit.runs()}.values())
     files = {p for unit in todo for r in unit.runs() for p in r.all_files()}
-    log(f"reducing {len(lazy)} runs ({len(files)} files) in one pass")
-    series, errors = compute_runs(lazy, progress)
-    for label, err in errors.items():
-        broken[label] = err if isinstance(err, ArchiveError) else read_failure(runs_by_label[label], err)
+    log(f"reducing {len(runs)} runs ({len(files)} files) in one pass")
+    series, broken = reduce_runs(runs, settings.required_variables, progress)
     for label, ds in series.items():
         if ds.attrs.get("attribute_mismatch"):
             notes.append(f"{label}: file attributes disagree with the path, which names the run (flag "
                          f"attribute_mismatch): {ds.attrs['attribute_mismatch']}")
-        empty = empty_steps(ds, runs_by_label[label])
-        if empty is not None:
-            broken[label] = empty
 
     computed = []
     for position, unit in enumerate(todo, start=1):

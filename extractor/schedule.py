@@ -1,11 +1,19 @@
-"""Scheduling: the lazy global-mean series of every run computed in one dask graph.
+"""Scheduling: the global-mean series of every run of a batch, computed in one dask graph.
 
-Which scheduler runs it is chosen outside (`sensemble.compute`); here the graph is submitted once, with the
-progress bar that suits the scheduler.
+The graph has one task per run. Each task opens its run's files, reduces them chunk by chunk and checks the
+result; a failure comes back as the task's value (an `ArchiveError` naming the file), so one bad run never
+stops the graph and nothing is read twice to find the culprit. Which scheduler runs the graph is chosen outside
+(`sensemble.compute`); here it is submitted once, with the progress bar that suits the scheduler.
 """
 from __future__ import annotations
 
 import dask
+import xarray as xr
+
+from .catalog import RunFiles
+from .diagnose import empty_steps, read_failure
+from .errors import ArchiveError
+from .runs import global_mean_series
 
 
 def distributed_client():
@@ -39,17 +47,50 @@ def compute_all(collections: list, progress: bool) -> list:
     return client.gather(futures)
 
 
-def compute_runs(lazy: dict, progress: bool) -> tuple[dict, dict]:
-    """Compute all lazy series in one graph; on failure, isolate the failing runs one by one."""
-    keys = list(lazy)
+class _Held:
+    """Hands a lazy dataset to a task as it is: dask does not make its chunks the task's dependencies."""
+
+    def __init__(self, value):
+        self.value = value
+
+
+def reduce_run(held: _Held, run: RunFiles) -> xr.Dataset | ArchiveError | BaseException:
+    """One run's global means computed in memory, or what stopped it (returned as the value, not raised).
+
+    Inside this task the run's chunks are reduced one after another, so a worker holds one chunk at a time.
+    """
     try:
-        values = compute_all([lazy[k] for k in keys], progress)
-        return dict(zip(keys, values)), {}
-    except Exception:  # noqa: BLE001 — isolate below, each failure becomes a recorded message
-        results, errors = {}, {}
-        for k in keys:
-            try:
-                results[k] = compute_all([lazy[k]], False)[0]
-            except Exception as err:  # noqa: BLE001
-                errors[k] = err
-        return results, errors
+        series = held.value.compute(scheduler="sync")
+    except Exception as err:  # noqa: BLE001 — diagnosed by the caller, which names the damaged file
+        return err
+    return empty_steps(series, run) or series
+
+
+def reduce_runs(runs: list[RunFiles], required: tuple[str, ...],
+                progress: bool) -> tuple[dict[str, xr.Dataset], dict[str, ArchiveError]]:
+    """Global-mean series of ``runs`` in one graph, one task per run: ``({label: series}, {label: error})``.
+
+    The files are opened here, one after another (the HDF5 library must not open files in several threads
+    at once); their values are read in the graph.
+    """
+    series, errors, tasks, opened = {}, {}, [], []
+    for run in runs:
+        try:
+            lazy = global_mean_series(run, required=required)
+        except ArchiveError as err:
+            errors[run.label] = err
+            continue
+        except Exception as err:  # noqa: BLE001 — recorded, never hidden
+            errors[run.label] = ArchiveError(f"could not be read ({type(err).__name__}: {err})",
+                                             path=";".join(map(str, run.all_files()[:1])), model=run.model)
+            continue
+        tasks.append(dask.delayed(reduce_run, pure=True)(_Held(lazy), run, dask_key_name=f"reduce-run-{len(tasks)}"))
+        opened.append(run)
+    for run, value in zip(opened, compute_all(tasks, progress) if tasks else []):
+        if isinstance(value, xr.Dataset):
+            series[run.label] = value
+        elif isinstance(value, ArchiveError):
+            errors[run.label] = value
+        else:
+            errors[run.label] = read_failure(run, value)
+    return series, errors

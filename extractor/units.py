@@ -1,7 +1,13 @@
-"""Planning: the catalogue grouped into units — one (model, member) with its control — before any value is read."""
+"""Planning: the catalogue grouped into units — one (model, member) with its control — before any value is read.
+
+With ``[archive] scenarios`` set, a unit keeps only the listed scenario runs and the runs they continue (a
+historical-type parent, found from the listed run's ``parent_experiment_id``): the other runs are never opened.
+"""
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+
+import netCDF4
 
 from .catalog import Catalog, RunFiles
 from .outcome import Failure
@@ -61,5 +67,42 @@ def plan_units(catalog: Catalog, settings: ExtractionSettings) -> tuple[list[Uni
                 abrupt = next((r for r in non_control if r.experiment_id == abrupt_id), None)
                 onepct = next((r for r in non_control if r.experiment_id == onepct_id), None)
                 others = [r for r in non_control if r.experiment_id not in (abrupt_id, onepct_id)]
+                others = listed_scenarios(others, settings, control_id)
                 units.append(Unit(model, member, control, abrupt, onepct, others, flags, mip_era=era))
     return units, failures
+
+
+def parent_experiment(run: RunFiles) -> str | None:
+    """The ``parent_experiment_id`` global attribute of a run's first file ("" when absent), None when unreadable.
+
+    Only the file's header is read; an unreadable file is left for the extraction to report with its cause.
+    """
+    first = next((paths[0] for paths in run.files.values() if paths), None)
+    if first is None:
+        return None
+    try:
+        with netCDF4.Dataset(first) as nc:
+            return str(getattr(nc, "parent_experiment_id", "")).strip()
+    except OSError:
+        return None
+
+
+def listed_scenarios(others: list[RunFiles], settings: ExtractionSettings, control_id: str) -> list[RunFiles]:
+    """The runs ``[archive] scenarios`` asks for, with the runs they continue; all of them when it is unset.
+
+    When a listed run's parent cannot be read from its header, every run is kept: the extraction then reads
+    them all and reports the unreadable file, as without the setting.
+    """
+    if settings.scenarios is None:
+        return others
+    by_id = {r.experiment_id: r for r in others}
+    keep: set[str] = set()
+    for experiment_id in settings.scenarios:
+        run = by_id.get(experiment_id)
+        while run is not None and run.experiment_id not in keep:
+            keep.add(run.experiment_id)
+            parent = parent_experiment(run)
+            if parent is None:
+                return others
+            run = by_id.get(parent) if parent != control_id else None
+    return [r for r in others if r.experiment_id in keep]

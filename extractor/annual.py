@@ -36,8 +36,13 @@ def _bounds_of(ds: xr.Dataset) -> xr.DataArray | None:
     return None
 
 
-def annual_means(ds: xr.Dataset) -> xr.Dataset:
+def annual_means(ds: xr.Dataset, start: str = "january") -> xr.Dataset:
     """Month-length-weighted calendar-year means of a monthly Dataset (dim ``time``).
+
+    ``start="first_month"`` makes the years blocks of twelve months from the series' first month instead
+    (a run branched on 1 July has years July–June; each is labelled with the calendar year it begins in and
+    ``attrs["first_month"]`` gives that month), so that a run starting mid-year keeps every whole year.
+    For a series starting in January both are the same.
 
     Month lengths come from the time bounds when present (the length of each averaging
     interval), else from the calendar in ``attrs["calendar"]`` (or the time encoding) through
@@ -77,8 +82,14 @@ def annual_means(ds: xr.Dataset) -> xr.Dataset:
     else:
         weights = month_lengths(times, calendar)
 
+    if start not in ("january", "first_month"):
+        raise ValueError(f"start must be 'january' or 'first_month', got {start!r}")
     years = np.array([t.year for t in times], dtype=np.int64)
     months = np.array([t.month for t in times], dtype=np.int64)
+    first_month = int(months[0]) if start == "first_month" and times.size else 1
+    if first_month != 1:
+        # the block a month falls in, labelled by the calendar year the block begins in
+        years = (years * 12 + months - 1 - (first_month - 1)) // 12
     all_years = np.unique(years)
     complete = np.array(
         [np.unique(months[years == y]).size == 12 and np.sum(years == y) == 12 for y in all_years], dtype=bool
@@ -113,6 +124,7 @@ def annual_means(ds: xr.Dataset) -> xr.Dataset:
         attrs["partial_years_dropped"] = ";".join(str(int(y)) for y in dropped)
     attrs.setdefault("flags", "")
     attrs["calendar"] = calendar
+    attrs["first_month"] = first_month
     attrs["annual_weights"] = "time_bounds" if bounds is not None else "calendar_month_lengths"
     out.attrs = attrs
     return out

@@ -62,35 +62,50 @@ def _missing(value) -> bool:
 
 
 def branch_year(experiment_attrs: Mapping, control: xr.Dataset) -> tuple[int, list[str]]:
-    """Control calendar year in which the experiment starts.
-
-    ``branch_time_in_parent`` is decoded with ``parent_time_units`` in the control's calendar
-    (``control.attrs["calendar"]``, the parent's) through cftime. A CMIP5 run gives its ``branch_time``
-    in the parent's own time units without naming them (``branch_time_convention = "CMIP5"``, set by
-    `extractor.runs`): the control's ``time_units`` are used. The branch year is the year
-    containing that instant, except that an instant within the last day of a year counts as the
-    start of the next year (some models record the branch at the end of the last day, e.g.
-    31 Dec 24:00 as 31 Dec 12:00 or 23:59); a branch on 1 Jan Y 00:00 is year Y.
+    """Control calendar year in which the experiment starts (the year of `branch_point`).
 
     Returns
     -------
     (year, flags)
         ``flags`` holds ``branch_assumed`` when the experiment carries no branch information and
         the control's first year is used.
+    """
+    year, _, flags = branch_point(experiment_attrs, control)
+    return year, flags
+
+
+def branch_point(experiment_attrs: Mapping, control: xr.Dataset) -> tuple[int, int, list[str]]:
+    """Control calendar year and month (1–12) in which the experiment starts.
+
+    ``branch_time_in_parent`` is decoded with ``parent_time_units`` in the control's calendar
+    (``control.attrs["calendar"]``, the parent's) through cftime. A CMIP5 run gives its ``branch_time``
+    in the parent's own time units without naming them (``branch_time_convention = "CMIP5"``, set by
+    `extractor.runs`): the control's ``time_units`` are used. The branch month is the month containing
+    that instant, except that an instant within the last day of a month counts as the start of the next
+    (some models record the branch at the end of the last day, e.g. 31 Dec 24:00 as 31 Dec 12:00 or
+    23:59); a branch on 1 Jan Y 00:00 is January of year Y. A branch in any other month than January is
+    legal: `drift_corrected` then matches the experiment's years with the control's months.
+
+    Returns
+    -------
+    (year, month, flags)
+        ``flags`` holds ``branch_assumed`` when the experiment carries no branch information and
+        the control's first month is used.
 
     Raises
     ------
     ControlError
-        Undecodable branch information, or a branch year outside the control's years.
+        Undecodable branch information, or a branch outside the control.
     """
     control_years = _years(control, "control")
+    first_month = int(control.attrs.get("first_month", 1))
     who = _describe(experiment_attrs)
     branch_time = _scalar(experiment_attrs.get("branch_time_in_parent"))
     units = _scalar(experiment_attrs.get("parent_time_units"))
     if _missing(units) and experiment_attrs.get("branch_time_convention") == "CMIP5":
         units = _scalar(control.attrs.get("time_units"))
     if _missing(branch_time) or _missing(units):
-        return int(control_years[0]), [BRANCH_ASSUMED]
+        return int(control_years[0]), first_month, [BRANCH_ASSUMED]
     calendar = control.attrs.get("calendar")
     if _missing(calendar):
         raise ControlError(
@@ -99,28 +114,38 @@ def branch_year(experiment_attrs: Mapping, control: xr.Dataset) -> tuple[int, li
         )
     try:
         when = cftime.num2date(float(branch_time), str(units), calendar=str(calendar))
-        next_new_year = cftime.datetime(when.year + 1, 1, 1, calendar=when.calendar, has_year_zero=when.has_year_zero)
+        year, month = when.year + when.month // 12, when.month % 12 + 1
+        next_month = cftime.datetime(year, month, 1, calendar=when.calendar, has_year_zero=when.has_year_zero)
     except (ValueError, TypeError) as err:
         raise ControlError(
             f"{who}: cannot decode branch_time_in_parent={branch_time!r} in {units!r} "
             f"({calendar} calendar): {err}"
         ) from None
-    year = when.year + 1 if next_new_year - when <= datetime.timedelta(days=1) else when.year
-    if not control_years[0] <= year <= control_years[-1]:
+    if next_month - when > datetime.timedelta(days=1):
+        year, month = when.year, when.month
+    start = control_years[0] + (first_month - 1) / 12
+    if not start <= _position(year, month) < control_years[-1] + 1 + (first_month - 1) / 12:
         raise ControlError(
             f"{who} branches in control year {year} (branch_time_in_parent={branch_time!r} {units}), "
             f"outside the control {_describe(control.attrs)} years {control_years[0]}-{control_years[-1]}"
         )
-    return int(year), []
+    return int(year), int(month), []
+
+
+def _position(year, month=1) -> float:
+    """Time in years of the start of a month: the clock on which control and experiment years are matched."""
+    return np.asarray(year, dtype=float) + (np.asarray(month, dtype=float) - 1.0) / 12.0
 
 
 def _drift(segment: xr.Dataset, at: np.ndarray, order: int) -> dict[str, np.ndarray]:
-    """Polynomial of ``order`` in time fitted to each variable of ``segment``, evaluated at years ``at``.
+    """Polynomial of ``order`` in time fitted to each variable of ``segment``, evaluated at times ``at``.
 
-    Time is measured from the segment's first year so the fit is well conditioned.
+    Times are the starts of the years in years (`_position`; a segment whose years begin in another month
+    than January, ``attrs["first_month"]``, is placed accordingly), measured from the segment's first year
+    so the fit is well conditioned.
     """
     origin = int(segment["year"].values[0])
-    x = segment["year"].values.astype(float) - origin
+    x = _position(segment["year"].values, segment.attrs.get("first_month", 1)) - origin
     design = np.vander(x, order + 1, increasing=True)
     target = np.vander(np.asarray(at, dtype=float) - origin, order + 1, increasing=True)
     fitted = {}
@@ -162,14 +187,19 @@ def drift_corrected(
     branch_year: int,
     order: int = 1,
     min_years: int = 30,
+    branch_month: int = 1,
 ) -> tuple[xr.Dataset, list[str]]:
     """Experiment minus the control's drift over the parallel segment.
 
-    The experiment's year k (k = 1 … n) runs alongside control year ``branch_year + k - 1``.
-    Each variable of the control is fitted over the control years available in
-    ``branch_year … branch_year + n - 1`` by a polynomial of ``order`` (1 or 2); the fit is
-    evaluated at all n parallel years (extrapolated where the control ends early) and subtracted.
-    Because the fit is linear in the data, correcting fluxes and then forming N equals correcting N.
+    The experiment's year k (k = 1 … n) is the twelve months from month ``branch_month`` of control
+    year ``branch_year + k - 1``. Each variable of the control is fitted over the control years
+    overlapping those months by a polynomial of ``order`` (1 or 2) in time; the fit is evaluated at
+    the matching months of all n years (extrapolated where the control ends early) and subtracted.
+    A branch in mid-year is thus matched month for month: the drift fitted to the control's annual
+    means, as a function of each year's start, is evaluated at the start of each experiment year
+    (exact for a polynomial drift of order ≤ 2, whose annual means are the same polynomial shifted
+    by a constant). Because the fit is linear in the data, correcting fluxes and then forming N
+    equals correcting N.
 
     Parameters
     ----------
@@ -202,10 +232,14 @@ def drift_corrected(
     calendar_years = _years(experiment, "experiment")
     control_years = _years(control, "control")
     n = calendar_years.size
-    parallel = np.arange(branch_year, branch_year + n)
+    parallel = _position(np.arange(branch_year, branch_year + n), branch_month)
     # a short experiment still gets a drift fitted over at least `min_years` of control where they exist
     span = max(n, int(min_years))
-    segment = control.sel(year=slice(int(branch_year), int(branch_year + span - 1)))
+    # the control years overlapping the experiment's span of months
+    starts = _position(control_years, control.attrs.get("first_month", 1))
+    overlapping = (starts + 1 > parallel[0] + 1e-9) & (starts < parallel[0] + span - 1e-9)
+    segment = control.isel(year=np.flatnonzero(overlapping))
+    segment.attrs = dict(control.attrs)
     available = segment.sizes["year"]
     who = _describe(experiment.attrs)
     if available < max(int(min_years), order + 1):
@@ -215,7 +249,7 @@ def drift_corrected(
             f"at least {min_years} are needed for the drift fit"
         )
     flags = []
-    if available < min(n, span) or segment["year"].values[-1] < parallel[-1]:
+    if available < min(n, span) or starts[overlapping][-1] + 1 < parallel[-1] + 1 - 1e-9:
         flags.append(CONTROL_SHORT)
     shared = [name for name in experiment.data_vars if name in control.data_vars]
     flags += [f"control_lacks_{name}" for name in experiment.data_vars if name not in control.data_vars]
@@ -227,6 +261,7 @@ def drift_corrected(
     net = _net_flux(segment)
     out.attrs.update(
         branch_year=int(branch_year),
+        branch_month=int(branch_month),
         drift_order=order,
         control_years=f"{int(segment['year'].values[0])}-{int(segment['year'].values[-1])}",
         control_rtnt_mean=float(np.mean(net)) if net is not None else math.nan,
@@ -243,7 +278,7 @@ def control_residuals(control: xr.Dataset, order: int = 1) -> xr.Dataset:
     years = _years(control, "control")
     if years.size <= order + 1:
         raise ControlError(f"control {_describe(control.attrs)} has {years.size} years; too few for a drift fit")
-    drift = _drift(control, years, order)
+    drift = _drift(control, _position(years, control.attrs.get("first_month", 1)), order)
     values = {name: np.asarray(control[name].values, dtype=np.float64) - drift[name] for name in control.data_vars}
     out = _relabel(values, control, years)
     out.attrs.update(drift_order=order)

@@ -180,6 +180,21 @@ def _from_areacella(ds, areacella: xr.DataArray, lat: str, lon: str) -> xr.DataA
     return weights.assign_coords({c: ds[c] for c in (lat, lon) if set(ds[c].dims) <= set(spatial)})
 
 
+#: A run whose cell areas add up to less than this share of the sphere is refused as regional. Models' own
+#: areas differ from our sphere only by their Earth radius (6 371–6 378 km: ≤ 0.3 % of the area) and grids whose
+#: bounds stop short of the poles (a last band ending at ±89°) lose under 0.02 %; a regional cut-out lacks far
+#: more (the largest continent is under 10 % of the sphere). 2 % leaves a wide margin on both sides.
+MIN_SPHERE_FRACTION = 0.98
+
+
+def sphere_fraction(weights: xr.DataArray) -> float | None:
+    """Share of the sphere 4πR² (R = `EARTH_RADIUS_M`) that the cell areas cover; None for cos φ weights."""
+    if weights.attrs.get("units") != "m2":
+        return None
+    total = float(np.nansum(np.asarray(weights.values, dtype=np.float64)))
+    return total / (4.0 * np.pi * EARTH_RADIUS_M**2)
+
+
 def global_mean(da: xr.DataArray, weights: xr.DataArray) -> xr.DataArray:
     """Area-weighted mean over the horizontal dims of ``weights``, lazily.
 

@@ -16,7 +16,7 @@ import xarray as xr
 
 from .catalog import RunFiles
 from .errors import ArchiveError
-from .means import area_weights, find_lat_lon, global_mean
+from .means import EARTH_RADIUS_M, MIN_SPHERE_FRACTION, area_weights, find_lat_lon, global_mean, sphere_fraction
 from .settings import ExtractionSettings
 
 #: time chunk of the lazy arrays: ten years of monthly fields
@@ -196,6 +196,15 @@ def global_mean_series(
         weights, flag = area_weights(ds, open_area(run))
     except ArchiveError as err:
         raise _error(run, run.areacella or run.files[next(iter(run.files))][0], err.message, err.hint) from None
+    fraction = sphere_fraction(weights)
+    if fraction is not None and fraction < MIN_SPHERE_FRACTION:
+        source = "areacella" if weights.attrs.get("weight_source") == "areacella" else "cell areas from lat/lon bounds"
+        raise _error(
+            run, run.areacella if source == "areacella" else run.files[next(iter(run.files))][0],
+            f"the grid covers {fraction:.1%} of the sphere ({source} against 4πR², R = {EARTH_RADIUS_M / 1e3:g} km; "
+            f"at least {MIN_SPHERE_FRACTION:.0%} needed): a regional subset, not a global grid",
+            "give the run's global fields (a global mean needs the whole sphere), or leave this run out",
+        )
     means = {v: global_mean(ds[v], weights) for v in run.files}
     out = xr.Dataset(means)
     if "time_bnds" in ds:

@@ -15,7 +15,7 @@ from sensemble.contract.table import SensitivityRow
 from .annual import annual_means
 from .budget import toa_budget
 from .catalog import RunFiles
-from .control import ControlError, branch_year, control_residuals, drift_corrected, join_chain
+from .control import ControlError, branch_point, control_residuals, drift_corrected, join_chain
 from .diagnose import message, run_error, window_hint
 from .errors import ArchiveError
 from .flags import join_flags, quality_flags
@@ -41,7 +41,7 @@ def anomalies(run_annual: xr.Dataset, control_annual: xr.Dataset, settings: Extr
               run: RunFiles | None = None, control_run: RunFiles | None = None) -> tuple[xr.Dataset, list[str]]:
     """A run's annual means as drift-corrected anomalies against the control, with their flags."""
     try:
-        year0, flags = branch_year(run_annual.attrs, control_annual)
+        year0, month0, flags = branch_point(run_annual.attrs, control_annual)
     except ControlError as err:
         raise run_error(err, run, run_annual, "fix branch_time_in_parent and parent_time_units in the global "
                         f"attributes of the {run_annual.attrs.get('experiment_id', 'run')} files so that they give "
@@ -49,7 +49,7 @@ def anomalies(run_annual: xr.Dataset, control_annual: xr.Dataset, settings: Extr
                         "(flagged branch_assumed)") from None
     try:
         anomalies, more = drift_corrected(run_annual, control_annual, year0, order=settings.drift_order,
-                                          min_years=settings.min_control_years)
+                                          min_years=settings.min_control_years, branch_month=month0)
     except ControlError as err:
         raise run_error(err, control_run, run_annual, "supply a longer control run, or lower [extraction] "
                         f"min_control_years (now {settings.min_control_years}) in the config") from None
@@ -146,7 +146,9 @@ def unit_science(unit: Unit, series: dict[str, xr.Dataset], settings: Extraction
     annual = {}
     for run in unit.runs():
         try:
-            ds = annual_means(series[run.label])
+            # years as blocks of twelve months from each run's first month: a run branched in mid-year
+            # keeps all its whole years (for a run starting in January these are its calendar years)
+            ds = annual_means(series[run.label], start="first_month")
         except ArchiveError as err:
             raise run_error(err.message, run, None, err.hint or "check the time axis of the run's files") from None
         ds = toa_budget(ds)

@@ -59,7 +59,10 @@ def gregory_plot(delta_t, delta_n, row: dict, settings, path: str | Path) -> Pat
 
 
 def ensemble_summary(rows: list[dict], path: str | Path) -> Path:
-    """ECS_eff with its 5–95 % bootstrap interval per model and member, sorted; TCR beside it."""
+    """ECS_eff with its 5–95 % interval per model and member, sorted; TCR beside it.
+
+    An interval without an upper end (inf) is drawn to the right edge of the axes.
+    """
     good = [r for r in rows if r.get("ecs_eff") is not None]
     good.sort(key=lambda r: r["ecs_eff"])
     fig, ax = plt.subplots(figsize=(7, 0.35 * max(len(good), 4) + 1.2))
@@ -67,6 +70,10 @@ def ensemble_summary(rows: list[dict], path: str | Path) -> Path:
     ecs = np.array([r["ecs_eff"] for r in good])
     lo = np.array([r.get("ecs_eff_q05") if r.get("ecs_eff_q05") is not None else np.nan for r in good])
     hi = np.array([r.get("ecs_eff_q95") if r.get("ecs_eff_q95") is not None else np.nan for r in good])
+    open_ended = np.isinf(hi)
+    finite = np.concatenate([ecs, hi[np.isfinite(hi)]])
+    right = 1.3 * float(np.max(finite, initial=1.0))
+    hi = np.where(open_ended, right, hi)
     ax.errorbar(ecs, y, xerr=[ecs - lo, hi - ecs], fmt="o", color="C0", capsize=3, label="ECS_eff (5–95 %)")
     tcr = np.array([r.get("tcr") if r.get("tcr") is not None else np.nan for r in good])
     ax.plot(tcr, y, "s", color="C1", label="TCR")

@@ -9,6 +9,9 @@ from sensemble.extractor.settings import ExtractionSettings
 ENERGY_LEAK = "energy_leak"
 POOR_FIT = "poor_fit"
 NONPHYSICAL = "nonphysical"
+#: suffix of ``ecs_eff_unbounded`` / ``ecs_late_unbounded``: the feedback is not distinguishable from zero at
+#: the interval's level, so the interval has no upper end (q95 = inf), or no interval exists (both empty)
+ECS_UNBOUNDED = "unbounded"
 
 
 def _finite(value) -> bool:

@@ -5,6 +5,10 @@ forcing, the slope λ the feedback parameter (λ < 0 for a stable climate), and 
 climate sensitivity is ``ecs_eff = -F / (forcing_ratio * λ)`` (``forcing_ratio`` = 2 for 4×CO2,
 the forcing of a quadrupling taken as twice that of a doubling).
 
+Standard errors count the autocorrelation of internal variability (extractor.serial) and, when the
+control's internal variability is given (:class:`ControlVariability`), the error of the control drift line
+subtracted from the run; plain OLS errors, which assume independent years, are kept only as ``*_se_ols``.
+
 Inputs are annual anomaly series: :class:`xarray.DataArray` with dimension ``year`` counting from
 1 at the branch (as ``extractor.control.drift_corrected`` returns), or plain 1-D arrays whose
 first element is year 1. Windows ``years=(first, last)`` include both ends.
@@ -17,6 +21,7 @@ from dataclasses import dataclass
 import numpy as np
 import xarray as xr
 
+from sensemble.extractor.serial import AR1Noise, drift_covariance, estimate_ar1, ols_sandwich
 from sensemble.extractor.settings import ExtractionSettings
 
 _DEFAULTS = ExtractionSettings()
@@ -27,21 +32,62 @@ class FitWindowError(ValueError):
 
 
 @dataclass(frozen=True)
+class ControlVariability:
+    """The control's internal variability, for the uncertainty of fits to drift-corrected anomalies.
+
+    Attributes
+    ----------
+    residuals : xarray.Dataset
+        The control minus its own drift fit (:func:`extractor.control.control_residuals`): ``tas``,
+        ``rtnt`` and whichever flux components the fits use, along ``year``.
+    drift_order : int
+        Order of the drift polynomial subtracted from the experiment.
+    drift_years : int
+        Control years the experiment's drift was fitted over, from the branch on (the parallel segment).
+    """
+
+    residuals: xr.Dataset
+    drift_order: int
+    drift_years: int
+
+    @classmethod
+    def of(cls, residuals: xr.Dataset, anomalies: xr.Dataset) -> "ControlVariability":
+        """From the control's residuals and the anomalies ``drift_corrected`` returned (its attributes)."""
+        first, _, last = str(anomalies.attrs["control_years"]).partition("-")
+        return cls(residuals, int(anomalies.attrs["drift_order"]), int(last) - int(first) + 1)
+
+    def noise(self, regressand: str, slope: float, regressor: str = "tas") -> AR1Noise:
+        """AR(1) parameters of ``regressand − slope·regressor`` in the control: a fit's error process."""
+        z = (np.asarray(self.residuals[regressand].values, dtype=np.float64)
+             - slope * np.asarray(self.residuals[regressor].values, dtype=np.float64))
+        design = np.vander(np.arange(z.size, dtype=float), int(self.residuals.attrs.get("drift_order", 1)) + 1,
+                           increasing=True)
+        return estimate_ar1(z, design)
+
+
+@dataclass(frozen=True)
 class GregoryFit:
     """Ordinary least-squares Gregory fit ΔN = erf + feedback·ΔT.
 
     Attributes
     ----------
     erf, erf_se : float
-        Intercept (W m-2) and its OLS standard error.
+        Intercept (W m-2) and its standard error (autocorrelated internal variability, plus the drift
+        line's error when the control's variability was given).
     feedback, feedback_se : float
-        Slope (W m-2 K-1) and its OLS standard error.
+        Slope (W m-2 K-1) and its standard error (likewise).
     ecs_eff : float
         ``-erf / (forcing_ratio * feedback)`` (K).
     r2 : float
         Coefficient of determination of the fit.
     n_years : int
         Number of annual pairs fitted.
+    erf_feedback_cov : float
+        Covariance of intercept and slope (same sources as the standard errors).
+    erf_se_ols, feedback_se_ols : float
+        Textbook OLS standard errors (independent years), for comparison with reference libraries.
+    lag1 : float
+        Lag-1 autocorrelation of the error process the standard errors assume.
     """
 
     erf: float
@@ -51,6 +97,15 @@ class GregoryFit:
     ecs_eff: float
     r2: float
     n_years: int
+    erf_feedback_cov: float = float("nan")
+    erf_se_ols: float = float("nan")
+    feedback_se_ols: float = float("nan")
+    lag1: float = float("nan")
+
+    @property
+    def covariance(self) -> np.ndarray:
+        """2×2 covariance of (erf, feedback)."""
+        return np.array([[self.erf_se**2, self.erf_feedback_cov], [self.erf_feedback_cov, self.feedback_se**2]])
 
 
 @dataclass(frozen=True)
@@ -62,6 +117,8 @@ class SegmentFits:
     feedback_change: float  # feedback_late - feedback_early
     erf_late: float  # intercept of the late segment (W m-2)
     ecs_late: float  # -erf_late / (forcing_ratio * feedback_late)
+    early: GregoryFit | None = None  # the two fits, with their standard errors
+    late: GregoryFit | None = None
 
 
 @dataclass(frozen=True)
@@ -71,8 +128,9 @@ class QuadraticFit:
     erf: float
     feedback: float  # slope at ΔT = 0 (W m-2 K-1)
     curvature: float  # W m-2 K-2
-    curvature_se: float
+    curvature_se: float  # autocorrelated internal variability (+ drift line error), as GregoryFit
     n_years: int
+    curvature_se_ols: float = float("nan")  # textbook OLS, for comparison with reference libraries
 
 
 @dataclass(frozen=True)
@@ -103,6 +161,9 @@ class ComponentFeedbacks:
     feedback_lw_cs: float
     feedback_sw_cs: float
     feedback_cre: float
+    feedback_lw_cs_se: float = float("nan")  # standard errors as GregoryFit.feedback_se
+    feedback_sw_cs_se: float = float("nan")
+    feedback_cre_se: float = float("nan")
 
 
 def _as_annual(series, name: str) -> xr.DataArray:
@@ -182,7 +243,25 @@ def _ols(x: np.ndarray, y: np.ndarray) -> tuple[float, float, float, float, floa
     return float(intercept), float(intercept_se), float(slope), float(slope_se), float(r2)
 
 
-def gregory_fit(dT, dN, years=_DEFAULTS.fit_years, forcing_ratio: float = _DEFAULTS.forcing_ratio) -> GregoryFit:
+def _covariance(design: np.ndarray, resid: np.ndarray, years, control: ControlVariability | None,
+                regressand: str, slope: float) -> tuple[np.ndarray, AR1Noise]:
+    """Covariance of fitted coefficients: the run's autocorrelated internal variability, plus the drift line's.
+
+    Without the control's variability, its AR(1) parameters come from the fit's own residuals and the drift
+    line's error is left out. With it, they come from the control (``regressand − slope·tas``, the
+    combination a Gregory fit's error is made of), whose residuals hold no curvature of the response.
+    """
+    if control is None:
+        noise = estimate_ar1(resid, design)
+        return ols_sandwich(design, noise), noise
+    noise = control.noise(regressand, slope)
+    since_branch = np.arange(int(years[0]), int(years[1]) + 1) - 1
+    drift = drift_covariance(design, since_branch, control.drift_years, control.drift_order, noise)
+    return ols_sandwich(design, noise) + drift, noise
+
+
+def gregory_fit(dT, dN, years=_DEFAULTS.fit_years, forcing_ratio: float = _DEFAULTS.forcing_ratio,
+                control: ControlVariability | None = None, regressand: str = "rtnt") -> GregoryFit:
     """OLS regression of annual ΔN on ΔT over ``years`` (Gregory et al. 2004).
 
     Parameters
@@ -193,6 +272,11 @@ def gregory_fit(dT, dN, years=_DEFAULTS.fit_years, forcing_ratio: float = _DEFAU
         First and last year fitted, inclusive.
     forcing_ratio : float
         Forcing of the run divided by that of a CO2 doubling (2 for abrupt 4×CO2).
+    control : ControlVariability, optional
+        The control's internal variability and drift fit: the standard errors then carry the error of
+        the drift line too. Without it they carry the run's own autocorrelated variability only.
+    regressand : str
+        Name of ``dN``'s variable in ``control.residuals``.
 
     Returns
     -------
@@ -206,74 +290,23 @@ def gregory_fit(dT, dN, years=_DEFAULTS.fit_years, forcing_ratio: float = _DEFAU
     >>> round(fit.erf, 6), round(fit.feedback, 6), round(fit.ecs_eff, 6)
     (7.0, -1.0, 3.5)
     """
-    x, y = _pairs(dT, dN, years, "Gregory fit")
-    erf, erf_se, feedback, feedback_se, r2 = _ols(x, y)
+    x, y = _pairs(dT, dN, years, "Gregory fit" if regressand == "rtnt" else f"{regressand} feedback")
+    erf, erf_se_ols, feedback, feedback_se_ols, r2 = _ols(x, y)
+    design = np.column_stack([np.ones_like(x), x])
+    cov, noise = _covariance(design, y - erf - feedback * x, years, control, regressand, feedback)
     return GregoryFit(
         erf=erf,
-        erf_se=erf_se,
+        erf_se=float(np.sqrt(cov[0, 0])),
         feedback=feedback,
-        feedback_se=feedback_se,
+        feedback_se=float(np.sqrt(cov[1, 1])),
         ecs_eff=_ecs(erf, feedback, forcing_ratio),
         r2=r2,
         n_years=int(x.size),
+        erf_feedback_cov=float(cov[0, 1]),
+        erf_se_ols=erf_se_ols,
+        feedback_se_ols=feedback_se_ols,
+        lag1=noise.lag1,
     )
-
-
-def bootstrap_ecs(
-    dT,
-    dN,
-    years=_DEFAULTS.fit_years,
-    block: int = _DEFAULTS.bootstrap_block,
-    n_samples: int = _DEFAULTS.bootstrap_samples,
-    seed: int | np.random.Generator | None = _DEFAULTS.seed,
-    forcing_ratio: float = _DEFAULTS.forcing_ratio,
-    quantiles: tuple[float, float] = (0.05, 0.95),
-) -> tuple[float, float]:
-    """5–95 % interval of ``ecs_eff`` from a moving-block bootstrap over years.
-
-    Each bootstrap sample is built from blocks of ``block`` consecutive (ΔT, ΔN) pairs,
-    concatenated and cut to the window length ``n`` (Künsch 1989 moving-block bootstrap, which
-    keeps the year-to-year autocorrelation of internal variability within a block); each sample
-    is refitted by OLS. Percentile interval. All samples are drawn and fitted at once (vectorised).
-
-    Blocks wrap around the end of the window (the circular block bootstrap of Politis & Romano
-    1992, from memory): with plain moving blocks the first and last years fall in fewer blocks
-    than the rest, and in an abrupt run those are the high-leverage early years, so the interval
-    was shifted towards higher ECS. Wrapping gives every year the same weight.
-
-    Parameters
-    ----------
-    seed : int, numpy Generator or None
-        The same seed gives the same interval.
-
-    Returns
-    -------
-    (q05, q95) : tuple of float
-    """
-    x, y = _pairs(dT, dN, years, "bootstrap of ecs_eff")
-    n = x.size
-    block = int(block)
-    if not 1 <= block <= n:
-        raise FitWindowError(f"bootstrap block length {block} must be between 1 and the window length {n}")
-    if int(n_samples) < 1:
-        raise ValueError(f"bootstrap needs at least one sample; n_samples={n_samples}")
-    rng = np.random.default_rng(seed)
-    n_blocks = -(-n // block)
-    starts = rng.integers(0, n, size=(int(n_samples), n_blocks))
-    index = ((starts[:, :, None] + np.arange(block)) % n).reshape(int(n_samples), n_blocks * block)[:, :n]
-    xs, ys = x[index], y[index]
-    dx = xs - xs.mean(axis=1, keepdims=True)
-    dy = ys - ys.mean(axis=1, keepdims=True)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        slope = np.einsum("ij,ij->i", dx, dy) / np.einsum("ij,ij->i", dx, dx)
-        intercept = ys.mean(axis=1) - slope * xs.mean(axis=1)
-        ecs = -intercept / (forcing_ratio * slope)
-    # a resample with constant ΔT has no slope; such samples cannot be used (kept out of both tails)
-    ecs = ecs[np.isfinite(ecs)]
-    if ecs.size == 0:
-        raise FitWindowError("bootstrap of ecs_eff: no resample had a defined slope")
-    q_low, q_high = np.quantile(ecs, quantiles)
-    return float(q_low), float(q_high)
 
 
 def segment_fits(
@@ -282,21 +315,32 @@ def segment_fits(
     early=_DEFAULTS.early_years,
     late=_DEFAULTS.late_years,
     forcing_ratio: float = _DEFAULTS.forcing_ratio,
+    control: ControlVariability | None = None,
 ) -> SegmentFits:
-    """Separate Gregory fits over an early and a late window; the late one gives ``ecs_late``."""
-    early_fit = gregory_fit(dT, dN, early, forcing_ratio)
-    late_fit = gregory_fit(dT, dN, late, forcing_ratio)
+    """Separate Gregory fits over an early and a late window; the late one gives ``ecs_late``.
+
+    Pass ``control`` for standard errors that carry the drift line's error (see :func:`gregory_fit`); for
+    the short early segment it also gives the error process far better than 20 residuals could.
+    """
+    early_fit = gregory_fit(dT, dN, early, forcing_ratio, control)
+    late_fit = gregory_fit(dT, dN, late, forcing_ratio, control)
     return SegmentFits(
         feedback_early=early_fit.feedback,
         feedback_late=late_fit.feedback,
         feedback_change=late_fit.feedback - early_fit.feedback,
         erf_late=late_fit.erf,
         ecs_late=late_fit.ecs_eff,
+        early=early_fit,
+        late=late_fit,
     )
 
 
-def quadratic_fit(dT, dN, years=_DEFAULTS.fit_years) -> QuadraticFit:
-    """Least-squares ΔN = F + λΔT + aΔT²; ``curvature`` = a (> 0: feedback weakening with warming)."""
+def quadratic_fit(dT, dN, years=_DEFAULTS.fit_years, control: ControlVariability | None = None) -> QuadraticFit:
+    """Least-squares ΔN = F + λΔT + aΔT²; ``curvature`` = a (> 0: feedback weakening with warming).
+
+    ``curvature_se`` as the standard errors of :func:`gregory_fit` (the error process taken at the
+    local slope λ + 2aΔT̄ of the mean warming).
+    """
     x, y = _pairs(dT, dN, years, "quadratic Gregory fit")
     if x.size < 4:
         raise FitWindowError(f"quadratic Gregory fit needs at least 4 years; it has {x.size}")
@@ -306,13 +350,15 @@ def quadratic_fit(dT, dN, years=_DEFAULTS.fit_years) -> QuadraticFit:
         raise FitWindowError("quadratic Gregory fit: ΔT takes fewer than 3 distinct values over the window")
     resid = y - design @ coef
     s2 = (resid @ resid) / (x.size - 3)
-    cov = s2 * np.linalg.inv(design.T @ design)
+    cov_ols = s2 * np.linalg.inv(design.T @ design)
+    cov, _ = _covariance(design, resid, years, control, "rtnt", float(coef[1] + 2 * coef[2] * x.mean()))
     return QuadraticFit(
         erf=float(coef[0]),
         feedback=float(coef[1]),
         curvature=float(coef[2]),
         curvature_se=float(np.sqrt(cov[2, 2])),
         n_years=int(x.size),
+        curvature_se_ols=float(np.sqrt(cov_ols[2, 2])),
     )
 
 
@@ -388,19 +434,20 @@ def odr_fit(
     )
 
 
-def component_feedbacks(anomalies: xr.Dataset, years=_DEFAULTS.fit_years) -> ComponentFeedbacks | None:
-    """OLS slopes of ``lw_cs``, ``sw_cs`` and ``cre`` anomalies on ``tas`` over ``years``.
+def component_feedbacks(anomalies: xr.Dataset, years=_DEFAULTS.fit_years,
+                        control: ControlVariability | None = None) -> ComponentFeedbacks | None:
+    """OLS slopes of ``lw_cs``, ``sw_cs`` and ``cre`` anomalies on ``tas`` over ``years``, with standard errors.
 
     Returns None when the series has no clear-sky split (the run lacks ``rsutcs``/``rlutcs``);
-    the table then leaves these columns empty.
+    the table then leaves these columns empty. The control's variability is used for a component only
+    when the control has that component.
     """
     names = ("lw_cs", "sw_cs", "cre")
     if not all(name in anomalies.data_vars for name in names):
         return None
-    slopes = {}
+    values = {}
     for name in names:
-        x, y = _pairs(anomalies["tas"], anomalies[name], years, f"{name} feedback")
-        slopes[name] = _ols(x, y)[2]
-    return ComponentFeedbacks(
-        feedback_lw_cs=slopes["lw_cs"], feedback_sw_cs=slopes["sw_cs"], feedback_cre=slopes["cre"]
-    )
+        usable = control if control is not None and name in control.residuals else None
+        fit = gregory_fit(anomalies["tas"], anomalies[name], years, control=usable, regressand=name)
+        values[f"feedback_{name}"], values[f"feedback_{name}_se"] = fit.feedback, fit.feedback_se
+    return ComponentFeedbacks(**values)

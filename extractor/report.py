@@ -3,11 +3,20 @@ from __future__ import annotations
 
 from pathlib import Path
 
+from sensemble.contract.table import ECS_INTERVAL_METHODS
+
 from .atomic import write_text
 
 
 def _fmt(value, digits=2) -> str:
     return "" if value is None else f"{value:.{digits}f}"
+
+
+def _interval_method(settings) -> str:
+    text = ECS_INTERVAL_METHODS[settings.ecs_interval]
+    if settings.ecs_interval == "block_bootstrap":
+        text += f"; {settings.bootstrap_samples} samples with blocks of {settings.bootstrap_block} years"
+    return text
 
 
 def report_text(result, settings, archive) -> str:
@@ -20,8 +29,8 @@ def report_text(result, settings, archive) -> str:
         f"- failed: {len(result.failures)}",
         f"- files read: {result.files_read} ({result.bytes_read / 1e6:.1f} MB) in {result.seconds:.1f} s",
         f"- Gregory fit years {settings.fit_years[0]}–{settings.fit_years[1]}, early {settings.early_years}, "
-        f"late {settings.late_years}, drift order {settings.drift_order}, bootstrap {settings.bootstrap_samples} "
-        f"samples with blocks of {settings.bootstrap_block} years",
+        f"late {settings.late_years}, drift order {settings.drift_order}",
+        f"- ECS intervals (5–95 %): {_interval_method(settings)}",
         "",
         "## Sensitivities",
         "",

@@ -19,8 +19,10 @@ from .control import ControlError, branch_point, control_residuals, drift_correc
 from .diagnose import message, run_error, window_hint
 from .errors import ArchiveError
 from .flags import join_flags, quality_flags
-from .gregory import (FitWindowError, bootstrap_ecs, component_feedbacks, gregory_fit, odr_fit, quadratic_fit,
-                      segment_fits)
+from .ecs_interval import bootstrap_ecs, gregory_ecs_interval
+from .flags import ECS_UNBOUNDED
+from .gregory import (ControlVariability, FitWindowError, GregoryFit, component_feedbacks, gregory_fit, odr_fit,
+                      quadratic_fit, segment_fits)
 from .series import series_group
 from .settings import ExtractionSettings
 from .transient import tcr as transient_response
@@ -96,6 +98,27 @@ def _noise(residuals: xr.Dataset, name: str) -> float | None:
     return sd if sd > 0 else None
 
 
+def ecs_intervals(fit: GregoryFit, late: GregoryFit, dT, dN, settings: ExtractionSettings,
+                  flags: list[str]) -> dict:
+    """``ecs_eff_q05/q95`` and ``ecs_late_q05/q95`` by the configured method; an open or missing one is flagged."""
+    if settings.ecs_interval == "block_bootstrap":
+        def interval(years):
+            return bootstrap_ecs(dT, dN, years=years, block=settings.bootstrap_block,
+                                 n_samples=settings.bootstrap_samples, seed=settings.seed,
+                                 forcing_ratio=settings.forcing_ratio)
+        ecs, ecs_late = interval(settings.fit_years), interval(settings.late_years)
+    else:
+        ecs = gregory_ecs_interval(fit, settings.forcing_ratio)
+        ecs_late = gregory_ecs_interval(late, settings.forcing_ratio)
+    values = {}
+    for name, (low, high) in (("ecs_eff", ecs), ("ecs_late", ecs_late)):
+        if not (np.isfinite(low) and np.isfinite(high)):
+            flags.append(f"{name}_{ECS_UNBOUNDED}")
+        values[f"{name}_q05"] = None if np.isnan(low) else low
+        values[f"{name}_q95"] = None if np.isnan(high) else high
+    return values
+
+
 def fit_row(unit: Unit, abrupt: xr.Dataset | None, tcr_value: float | None, control_annual: xr.Dataset,
             residuals: xr.Dataset, settings: ExtractionSettings, flags: list[str]) -> SensitivityRow:
     """The Gregory fits of the abrupt anomalies (if any), the TCR and the quality flags as one table row."""
@@ -106,20 +129,21 @@ def fit_row(unit: Unit, abrupt: xr.Dataset | None, tcr_value: float | None, cont
         dT, dN = abrupt["tas"], abrupt["rtnt"]
         keys = ("fit_years",)
         try:
-            fit = gregory_fit(dT, dN, years=settings.fit_years, forcing_ratio=settings.forcing_ratio)
-            keys = ("bootstrap_block",)
-            q05, q95 = bootstrap_ecs(dT, dN, years=settings.fit_years, block=settings.bootstrap_block,
-                                     n_samples=settings.bootstrap_samples, seed=settings.seed,
-                                     forcing_ratio=settings.forcing_ratio)
+            variability = ControlVariability.of(residuals, abrupt)
+            fit = gregory_fit(dT, dN, years=settings.fit_years, forcing_ratio=settings.forcing_ratio,
+                              control=variability)
             keys = ("early_years", "late_years")
             seg = segment_fits(dT, dN, early=settings.early_years, late=settings.late_years,
-                               forcing_ratio=settings.forcing_ratio)
+                               forcing_ratio=settings.forcing_ratio, control=variability)
             keys = ("fit_years",)
-            quad = quadratic_fit(dT, dN, years=settings.fit_years)
+            quad = quadratic_fit(dT, dN, years=settings.fit_years, control=variability)
+            keys = ("fit_years", "late_years") + (("bootstrap_block",) if settings.ecs_interval == "block_bootstrap"
+                                                  else ())
+            values.update(ecs_intervals(fit, seg.late, dT, dN, settings, flags))
         except FitWindowError as err:
             raise run_error(err, unit.abrupt, abrupt, window_hint(settings, keys)) from None
         values.update(erf_4x=fit.erf, erf_4x_se=fit.erf_se, feedback=fit.feedback, feedback_se=fit.feedback_se,
-                      ecs_eff=fit.ecs_eff, ecs_eff_q05=q05, ecs_eff_q95=q95, feedback_early=seg.feedback_early,
+                      ecs_eff=fit.ecs_eff, feedback_early=seg.feedback_early,
                       feedback_late=seg.feedback_late, feedback_change=seg.feedback_change, ecs_late=seg.ecs_late,
                       curvature=quad.curvature, n_years=fit.n_years)
         if settings.orthogonal_fit:
@@ -127,7 +151,7 @@ def fit_row(unit: Unit, abrupt: xr.Dataset | None, tcr_value: float | None, cont
             odr = odr_fit(dT, dN, years=settings.fit_years, forcing_ratio=settings.forcing_ratio,
                           tas_noise=_noise(residuals, "tas"), rtnt_noise=_noise(residuals, "rtnt"))
             values.update(erf_4x_odr=odr.erf, feedback_odr=odr.feedback, ecs_eff_odr=odr.ecs_eff)
-        comps = component_feedbacks(abrupt, years=settings.fit_years)
+        comps = component_feedbacks(abrupt, years=settings.fit_years, control=variability)
         if comps is not None:
             values.update(feedback_lw_cs=comps.feedback_lw_cs, feedback_sw_cs=comps.feedback_sw_cs,
                           feedback_cre=comps.feedback_cre)

@@ -5,6 +5,7 @@ from dataclasses import dataclass, field
 from numbers import Integral, Real
 
 from sensemble.contract.constraints import Elements, Interval, Options, YearWindow
+from sensemble.contract.table import ECS_INTERVAL_METHODS
 
 #: Variables the sensitivity itself needs: ΔT, and N = rsdt − rsut − rlut (extractor/budget.py).
 SENSITIVITY_VARIABLES = ("tas", "rsdt", "rsut", "rlut")
@@ -46,6 +47,9 @@ class ExtractionSettings:
     forcing_ratio: float = 2.0  # erf_4x / erf_2x for ecs_eff = -erf_4x / (forcing_ratio * feedback)
     drift_order: int = 1  # 1 linear, 2 quadratic
     min_control_years: int = 30
+    # ECS intervals: "fieller" (measured coverage, README) or the former "block_bootstrap", which the three
+    # settings after it configure (sensemble.contract.table.ECS_INTERVAL_METHODS)
+    ecs_interval: str = "fieller"
     bootstrap_samples: int = 1000
     bootstrap_block: int = 10
     seed: int = 20261202
@@ -70,6 +74,7 @@ class ExtractionSettings:
         "forcing_ratio": _POSITIVE,
         "drift_order": [Options(1, 2)],
         "min_control_years": _POSITIVE_COUNT,
+        "ecs_interval": [Options(*ECS_INTERVAL_METHODS)],
         "bootstrap_samples": _POSITIVE_COUNT,
         "bootstrap_block": _POSITIVE_COUNT,
         "seed": [Interval(Integral, 0, None, closed="left")],

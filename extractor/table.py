@@ -11,7 +11,8 @@ import numpy as np
 import xarray as xr
 
 from sensemble.contract.cf import CONVENTIONS
-from sensemble.contract.table import ALL_COLUMNS, COLUMN_META, COLUMNS, EXTRA_COLUMNS, NUMERIC, TEXT_META  # noqa: F401
+from sensemble.contract.table import (ALL_COLUMNS, COLUMN_META, COLUMNS, ECS_INTERVAL_METHODS, EXTRA_COLUMNS,  # noqa: F401
+                                      NUMERIC, TEXT_META)
 
 from .atomic import atomic_path, write_text
 
@@ -53,6 +54,7 @@ def table_dataset(rows: list[dict], provenance: dict) -> xr.Dataset:
         "source": f"sensemble {provenance.get('software_version', '')}",
         "history": provenance.get("history", ""),
         "references": "Gregory et al. (2004), Geophys. Res. Lett., doi:10.1029/2003GL018747",
+        "ecs_interval_method": ECS_INTERVAL_METHODS[provenance.get("config", {}).get("ecs_interval", "fieller")],
         "sensemble_config": json.dumps(provenance.get("config", {}), sort_keys=True, default=str),
         "sensemble_input_files": "\n".join(provenance.get("input_files", [])),
     }

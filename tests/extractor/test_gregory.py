@@ -8,9 +8,9 @@ import statsmodels.api as sm
 import xarray as xr
 
 from sensemble.extractor.budget import toa_budget
+from sensemble.extractor.ecs_interval import bootstrap_ecs
 from sensemble.extractor.gregory import (
     FitWindowError,
-    bootstrap_ecs,
     component_feedbacks,
     gregory_fit,
     noise_scale,
@@ -83,6 +83,7 @@ def test_noise_free_two_layer_recovers_forcing_and_feedback():
     assert fit.r2 == pytest.approx(1.0, abs=1e-9)
     assert fit.n_years == 150
     assert fit.erf_se < 1e-6 and fit.feedback_se < 1e-6
+    assert fit.erf_se_ols < 1e-6 and fit.feedback_se_ols < 1e-6
 
 
 def test_ols_matches_scipy_linregress_and_statsmodels():
@@ -93,12 +94,12 @@ def test_ols_matches_scipy_linregress_and_statsmodels():
     ref = scipy.stats.linregress(x, y)
     assert fit.feedback == pytest.approx(ref.slope, abs=1e-10)
     assert fit.erf == pytest.approx(ref.intercept, abs=1e-10)
-    assert fit.feedback_se == pytest.approx(ref.stderr, abs=1e-10)
-    assert fit.erf_se == pytest.approx(ref.intercept_stderr, abs=1e-10)
+    assert fit.feedback_se_ols == pytest.approx(ref.stderr, abs=1e-10)
+    assert fit.erf_se_ols == pytest.approx(ref.intercept_stderr, abs=1e-10)
     assert fit.r2 == pytest.approx(ref.rvalue**2, abs=1e-10)
     ols = sm.OLS(y, sm.add_constant(x)).fit()
     np.testing.assert_allclose([fit.erf, fit.feedback], ols.params, rtol=0, atol=1e-10)
-    np.testing.assert_allclose([fit.erf_se, fit.feedback_se], ols.bse, rtol=0, atol=1e-10)
+    np.testing.assert_allclose([fit.erf_se_ols, fit.feedback_se_ols], ols.bse, rtol=0, atol=1e-10)
     assert fit.r2 == pytest.approx(ols.rsquared, abs=1e-10)
     assert fit.n_years == 130
     assert fit.ecs_eff == pytest.approx(-fit.erf / (2 * fit.feedback), rel=1e-12)
@@ -235,7 +236,7 @@ def test_quadratic_fit_recovers_curvature_of_exact_quadratic():
     assert quad.erf == pytest.approx(7.2, abs=1e-8)
     assert quad.feedback == pytest.approx(-1.3, abs=1e-8)
     assert quad.curvature == pytest.approx(0.04, abs=1e-9)
-    assert quad.curvature_se < 1e-8
+    assert quad.curvature_se < 1e-8 and quad.curvature_se_ols < 1e-8
 
 
 def test_quadratic_fit_matches_statsmodels_with_noise():
@@ -245,7 +246,7 @@ def test_quadratic_fit_matches_statsmodels_with_noise():
     x = dT.values
     ref = sm.OLS(dN.values, np.column_stack([np.ones_like(x), x, x * x])).fit()
     np.testing.assert_allclose([quad.erf, quad.feedback, quad.curvature], ref.params, atol=1e-10)
-    assert quad.curvature_se == pytest.approx(ref.bse[2], abs=1e-10)
+    assert quad.curvature_se_ols == pytest.approx(ref.bse[2], abs=1e-10)
 
 
 def _anomalies_with_clear_sky(seed=9):

@@ -125,6 +125,21 @@ def test_csv_header(result):
         assert next(csv.reader(fh))[:3] == ["model", "member", "erf_4x"]
 
 
+def test_ecs_intervals_of_an_exact_line_shrink_to_the_estimates(result):
+    # Data exactly on a Gregory line with a noise-free control: no noise, so the Fieller intervals of ecs_eff and
+    # ecs_late (after the contract's columns) close on the estimates (Fieller 1954, from memory); the table
+    # states the method (float32 files: 1e-4 slack as above)
+    with open(result.out_dir / "sensitivity.csv") as fh:
+        assert next(csv.reader(fh))[-2:] == ["ecs_late_q05", "ecs_late_q95"]
+    for row in result.rows:
+        for name in ("ecs_eff", "ecs_late"):
+            assert row[f"{name}_q05"] == pytest.approx(row[name], abs=1e-4)
+            assert row[f"{name}_q95"] == pytest.approx(row[name], abs=1e-4)
+    with netCDF4.Dataset(result.out_dir / "sensitivity.nc") as nc:
+        assert nc.ecs_interval_method.startswith("Fieller interval")
+        assert "ecs_interval_method" in nc["ecs_late_q95"].long_name
+
+
 def test_orthogonal_fit_and_short_onepct_run(archive, tmp_path):
     # On points exactly on a line the orthogonal-distance fit (scipy.odr) and OLS agree (common practice, no
     # source); a 1 % run shorter than the TCR window leaves tcr empty with a flag, the Gregory results stand.

@@ -23,8 +23,9 @@ from hypothesis import HealthCheck, given, settings
 
 from sensemble.extractor.budget import toa_budget
 from sensemble.extractor.catalog import scan
-from sensemble.extractor.control import drift_corrected
-from sensemble.extractor.gregory import bootstrap_ecs, gregory_fit
+from sensemble.extractor.control import control_residuals, drift_corrected
+from sensemble.extractor.ecs_interval import bootstrap_ecs, gregory_ecs_interval
+from sensemble.extractor.gregory import ControlVariability, gregory_fit
 from sensemble.extractor.means import area_weights, global_mean
 from sensemble.extractor.runs import global_mean_series
 from tests.extractor.conftest import write_run
@@ -65,6 +66,16 @@ def fitted(control: dict, experiment: dict, branch_year: int, order: int = 1):
     return fit, interval
 
 
+def fitted_with_control(control: dict, experiment: dict, branch_year: int, order: int = 1):
+    """The fit with the control's variability and its Fieller interval, as the pipeline makes them."""
+    ctl = toa_budget(annual(control, CONTROL_START, model="PROP-1", experiment_id="piControl"))
+    exp = toa_budget(annual(experiment, 2000, model="PROP-1", experiment_id="abrupt-4xCO2"))
+    anomalies, _ = drift_corrected(exp, ctl, branch_year, order=order)
+    variability = ControlVariability.of(control_residuals(ctl, order), anomalies)
+    fit = gregory_fit(anomalies["tas"], anomalies["rtnt"], years=(1, EXPERIMENT_YEARS), control=variability)
+    return fit, gregory_ecs_interval(fit)
+
+
 @FEW
 @given(seed=st.integers(0, 2**16), offset=st.integers(0, CONTROL_YEARS - EXPERIMENT_YEARS),
        order=st.sampled_from([1, 2]),
@@ -88,6 +99,12 @@ def test_gregory_fit_invariant_to_a_drift_shared_by_control_and_experiment(seed,
     for name in ("erf", "feedback", "ecs_eff", "erf_se", "feedback_se"):
         assert getattr(fit, name) == pytest.approx(getattr(clean_fit, name), rel=1e-7, abs=1e-9), name
     assert interval == pytest.approx(clean_interval, rel=1e-7)
+    # the control's residuals lose the drift too, so the standard errors and the interval that use them hold
+    clean_fit, clean_interval = fitted_with_control(control, experiment, branch, order)
+    fit, interval = fitted_with_control(drifted_control, drifted_experiment, branch, order)
+    for name in ("erf_se", "feedback_se", "erf_feedback_cov", "lag1"):
+        assert getattr(fit, name) == pytest.approx(getattr(clean_fit, name), rel=1e-6, abs=1e-9), name
+    assert interval == pytest.approx(clean_interval, rel=1e-6)
 
 
 @FEW
@@ -101,9 +118,18 @@ def test_scaling_all_fluxes_scales_forcing_and_feedback_not_sensitivity(seed, k)
     assert fit.feedback == pytest.approx(k * base_fit.feedback, rel=1e-9)
     assert fit.ecs_eff == pytest.approx(base_fit.ecs_eff, rel=1e-9)
     assert interval == pytest.approx(base_interval, rel=1e-9)
-    assert dataclasses.replace(fit, erf=0, erf_se=0, feedback=0, feedback_se=0, ecs_eff=0) == \
-        dataclasses.replace(base_fit, erf=0, erf_se=0, feedback=0, feedback_se=0, ecs_eff=0, r2=fit.r2)
+    scaled = dict(erf=0, erf_se=0, feedback=0, feedback_se=0, ecs_eff=0, erf_feedback_cov=0, erf_se_ols=0,
+                  feedback_se_ols=0)
+    assert dataclasses.replace(fit, **scaled) == dataclasses.replace(base_fit, **scaled, r2=fit.r2, lag1=fit.lag1)
     assert fit.r2 == pytest.approx(base_fit.r2, rel=1e-9)
+    assert fit.lag1 == pytest.approx(base_fit.lag1, abs=1e-6)
+    for name in ("erf_se", "feedback_se", "erf_se_ols", "feedback_se_ols"):
+        assert getattr(fit, name) == pytest.approx(abs(k) * getattr(base_fit, name), rel=1e-6), name
+    # with the control's variability: its residuals scale by k too, so the Fieller interval stays
+    base_fit, base_interval = fitted_with_control(control, experiment, CONTROL_START + 10)
+    fit, interval = fitted_with_control(scale(control), scale(experiment), CONTROL_START + 10)
+    assert fit.feedback_se == pytest.approx(abs(k) * base_fit.feedback_se, rel=1e-6)
+    assert interval == pytest.approx(base_interval, rel=1e-6)
 
 
 @pytest.fixture(scope="module")

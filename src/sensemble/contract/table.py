@@ -11,20 +11,34 @@ COLUMNS = (
     "n_years", "flags",
 )
 EXTRA_COLUMNS = ("feedback_lw_cs", "feedback_sw_cs", "feedback_cre", "erf_4x_odr", "feedback_odr", "ecs_eff_odr",
-                 "mip_era", "origin")
+                 "mip_era", "origin", "ecs_late_q05", "ecs_late_q95")
 ALL_COLUMNS = COLUMNS + EXTRA_COLUMNS
 #: columns that hold text; every other column is a number (an empty cell when it could not be computed)
 TEXT_COLUMNS = ("model", "member", "flags", "mip_era", "origin")
 
+#: How the ECS intervals (ecs_eff_q05/q95, ecs_late_q05/q95) are made, by the name ``[extraction] ecs_interval``
+#: takes; the table states the one used in its attribute ``ecs_interval_method``. Coverage measured by
+#: tests/benchmarks/coverage_extraction.py (README, "Uncertainty").
+ECS_INTERVAL_METHODS = {
+    "fieller": "Fieller interval of the ratio -erf / (forcing_ratio * feedback), from the Gregory fit's covariance "
+               "under AR(1) internal variability (estimated from the control) plus the error of the control drift "
+               "line subtracted from the run",
+    "block_bootstrap": "percentiles of a circular moving-block bootstrap over the run's years (the former method: "
+                       "it under-covers, and cannot see the drift line's error)",
+}
+#: the long name's reference to the method
+_INTERVAL = "of the 90 % interval (method: global attribute ecs_interval_method)"
+
 #: units and long names of the numeric columns
 COLUMN_META = {
     "erf_4x": ("W m-2", "effective radiative forcing of CO2 quadrupling (Gregory intercept)"),
-    "erf_4x_se": ("W m-2", "standard error of erf_4x (OLS)"),
+    "erf_4x_se": ("W m-2", "standard error of erf_4x (autocorrelated internal variability and drift line error)"),
     "feedback": ("W m-2 K-1", "climate feedback parameter (Gregory slope; negative is stable)"),
-    "feedback_se": ("W m-2 K-1", "standard error of feedback (OLS)"),
+    "feedback_se": ("W m-2 K-1", "standard error of feedback (autocorrelated internal variability and drift line "
+                                 "error)"),
     "ecs_eff": ("K", "effective climate sensitivity, -erf_4x / (forcing_ratio * feedback)"),
-    "ecs_eff_q05": ("K", "5th percentile of ecs_eff, moving-block bootstrap over years"),
-    "ecs_eff_q95": ("K", "95th percentile of ecs_eff, moving-block bootstrap over years"),
+    "ecs_eff_q05": ("K", f"lower end (5 %) of ecs_eff {_INTERVAL}"),
+    "ecs_eff_q95": ("K", f"upper end (95 %) of ecs_eff {_INTERVAL}; inf: no upper bound"),
     "feedback_early": ("W m-2 K-1", "feedback over the early segment"),
     "feedback_late": ("W m-2 K-1", "feedback over the late segment"),
     "feedback_change": ("W m-2 K-1", "feedback_late - feedback_early"),
@@ -38,6 +52,8 @@ COLUMN_META = {
     "erf_4x_odr": ("W m-2", "erf_4x from an orthogonal-distance (errors-in-variables) fit"),
     "feedback_odr": ("W m-2 K-1", "feedback from an orthogonal-distance (errors-in-variables) fit"),
     "ecs_eff_odr": ("K", "ecs_eff from an orthogonal-distance (errors-in-variables) fit"),
+    "ecs_late_q05": ("K", f"lower end (5 %) of ecs_late {_INTERVAL}"),
+    "ecs_late_q95": ("K", f"upper end (95 %) of ecs_late {_INTERVAL}; inf: no upper bound"),
 }
 TEXT_META = {
     "model": "source_id of the model",
@@ -83,6 +99,8 @@ class SensitivityRow:
     ecs_eff_odr: float | None = None
     mip_era: str | None = None
     origin: str | None = None
+    ecs_late_q05: float | None = None
+    ecs_late_q95: float | None = None
 
     def __post_init__(self):
         # plain Python numbers (numpy scalars do not survive JSON), whole years as int

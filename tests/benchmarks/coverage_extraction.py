@@ -24,7 +24,6 @@ Run: python tests/benchmarks/bench_coverage.py [--quick]
 """
 from __future__ import annotations
 
-import os
 import subprocess
 import sys
 import tempfile
@@ -183,12 +182,53 @@ def direct_rows(lag1: float, n_trials: int, seed: int) -> list[dict]:
     ]
 
 
+def write_archive(root: Path, trials) -> None:
+    """Tiny CMIP-style files of the trials' runs (values constant within each year: exact annual means)."""
+    from tests.extractor.conftest import write_run
+
+    branch_days = 365.0 * BRANCH_INDEX  # noleap calendar
+    for i, trial in enumerate(trials):
+        model = f"TRIAL-{i + 1:02d}"
+        for experiment, (tas, rtnt), attrs in (
+                ("piControl", trial["control"], {}),
+                ("abrupt-4xCO2", trial["abrupt"], {"parent_experiment_id": "piControl",
+                                                   "branch_time_in_parent": branch_days,
+                                                   "parent_time_units": f"days since {CONTROL_START}-01-01"})):
+            monthly = {"tas": np.repeat(tas, 12), "rsdt": np.full(12 * tas.size, 340.0),
+                       "rsut": np.full(12 * tas.size, 100.0), "rlut": np.repeat(240.0 - rtnt, 12)}
+            write_run(root, model, experiment, nyears=tas.size, start_year=CONTROL_START, values=monthly,
+                      attrs=attrs, nlat=2, nlon=4)
+
+
+def cli_rows(lag1: float, n_trials: int, seed: int) -> list[dict]:
+    """The same experiment through a real `sensemble extract` on files, checked against the direct path."""
+    from sensemble.extractor.table import read_table
+
+    trials = synthetic_trials(np.random.default_rng(seed), n_trials, lag1)
+    with tempfile.TemporaryDirectory() as folder:
+        write_archive(Path(folder) / "archive", trials)
+        done = subprocess.run([sys.executable, "-m", "sensemble.cli", "extract", str(Path(folder) / "archive"),
+                               "--out", str(Path(folder) / "out"), "--quiet"], capture_output=True, text=True)
+        if done.returncode != 0:
+            raise RuntimeError(f"sensemble extract failed: {done.stderr.strip()}")
+        rows = {r["model"]: r for r in read_table(Path(folder) / "out" / "sensitivity.csv")}
+    table = [rows[f"TRIAL-{i + 1:02d}"] for i in range(n_trials)]
+    direct = [through_extractor(trial) for trial in trials]
+    # float32 files against float64 series: the two paths agree to the files' rounding
+    gap = max(abs(r[c] - d[k][j]) for r, d in zip(table, direct)
+              for c, k, j in (("ecs_eff_q05", "ecs_fieller", 0), ("ecs_eff_q95", "ecs_fieller", 1)))
+    return [_interval_row(f"ecs_eff [q05, q95], lag-1 {lag1}, through sensemble extract", [t["ecs_eff"] for t in trials],
+                          [(r["ecs_eff_q05"], r["ecs_eff_q95"]) for r in table],
+                          f"largest difference from the direct path {gap:.1e} K")]
+
+
 def run(quick: bool = False) -> list[dict]:
     """Rows ``what, nominal, measured, detail`` of every extraction experiment."""
     n_trials = 60 if quick else 400
     rows = []
     for lag1, seed in ((0.5, 1), (0.8, 2)):
         rows += direct_rows(lag1, n_trials, seed)
+    rows += cli_rows(0.8, 3 if quick else 12, 3)
     return rows
 
 
@@ -198,4 +238,5 @@ def main() -> None:
 
 
 if __name__ == "__main__":
+    sys.path.insert(0, str(Path(__file__).resolve().parents[2]))  # the repository root: the `tests` package
     main()

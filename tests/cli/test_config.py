@@ -163,6 +163,7 @@ def test_ranges_and_cross_checks(tmp_path, text, words):
          "[prediction] grid: 'ecs_ef' is not an emulator input; did you mean 'ecs_eff'?"),
         ('[prediction]\ngrid = { ecs_eff = ["high"] }\n', "grid: ecs_eff must be a non-empty array of numbers"),
         ('[archive]\nabrupt = "piControl"\n', '[archive] abrupt and control both name "piControl"'),
+        ('[archive]\ncmip5_abrupt = "piControl"\n', '[archive] cmip5_abrupt and cmip5_control both name "piControl"'),
         ('[archive]\nonepct = ""\n', '[archive] onepct must name an experiment id, got ""; the default is "1pctCO2"'),
         ('[archive]\nscenarios = ["ssp-x", "abrupt-4xCO2"]\n',
          '[archive] scenarios lists "abrupt-4xCO2", which is the abrupt experiment'),

@@ -59,23 +59,30 @@ def _check_extraction(config: BatchConfig, source: str) -> None:
         )
 
 
+#: The experiment roles of each generation of archive layout (a mixed archive uses both).
+ROLE_GROUPS = (("control", "abrupt", "onepct"), ("cmip5_control", "cmip5_abrupt", "cmip5_onepct"))
+
+
 def _check_roles(ex, source: str) -> None:
     """Each role names its own experiment; a scenario is not one of the roles."""
-    roles = {name: getattr(ex, name) for name in ("control", "abrupt", "onepct") if hasattr(ex, name)}
-    for name, experiment in roles.items():
-        if not experiment.strip():
-            raise ConfigError(f"{source}: {where('extraction', name)} must name an experiment id, got \"\"; "
-                              f"the default is {format_value(type(ex)().__getattribute__(name))}")
-    seen: dict[str, str] = {}
-    for name, experiment in roles.items():
-        if experiment in seen:
-            raise ConfigError(f"{source}: [archive] {name} and {seen[experiment]} both name {format_value(experiment)}; "
-                              "each role needs its own experiment id")
-        seen[experiment] = name
+    defaults = type(ex)()
+    role_ids: dict[str, str] = {}
+    for group in ROLE_GROUPS:
+        seen: dict[str, str] = {}
+        for name in (n for n in group if hasattr(ex, n)):
+            experiment = getattr(ex, name)
+            if not experiment.strip():
+                raise ConfigError(f"{source}: {where('extraction', name)} must name an experiment id, got \"\"; "
+                                  f"the default is {format_value(getattr(defaults, name))}")
+            if experiment in seen:
+                raise ConfigError(f"{source}: [archive] {name} and {seen[experiment]} both name "
+                                  f"{format_value(experiment)}; each role needs its own experiment id")
+            seen[experiment] = name
+            role_ids.setdefault(experiment, name)
     for experiment in getattr(ex, "scenarios", None) or ():
-        if experiment in seen:
+        if experiment in role_ids:
             raise ConfigError(f"{source}: [archive] scenarios lists {format_value(experiment)}, which is the "
-                              f"{seen[experiment]} experiment; list only scenario experiment ids")
+                              f"{role_ids[experiment]} experiment; list only scenario experiment ids")
 
 
 def _check_emulator(config: BatchConfig, source: str) -> tuple[str, ...]:

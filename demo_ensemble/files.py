@@ -61,6 +61,7 @@ _EXPERIMENT_TEXT = {
     "1pctCO2": "1 percent per year increase in CO2",
     "hist-demo": "invented historical-type forcing (demo only)",
     "demo-rise": "invented scenario continuing hist-demo (demo only)",
+    "demo-steady": "invented lower scenario continuing hist-demo, forcing levelling off (demo only)",
 }
 
 

@@ -10,7 +10,8 @@ from . import generations
 from .calendar import date_number, month_bounds, month_starts
 from .fields import make_grid, recipes
 from .files import branch_attributes, write_areacella, write_run
-from .models import draw_models
+from .forcing import user_pathway
+from .models import HISTORICAL, HISTORICAL_START_YEAR, draw_models
 from .series import VARIABLES, simulate
 from .truth import FORCING_COLUMNS, TRUTH_COLUMNS, forcing_rows, truth_rows, write_csv
 
@@ -25,7 +26,7 @@ INVENTED DATA — sensemble demo ensemble
 
 Everything under archive/ was produced by sensemble's demo_ensemble generator (seed {seed}, {n} models,
 grid {nlat} x {nlon}). The models ({names}), their institutions, the historical-type experiment
-`hist-demo` and the scenario `demo-rise` are invented. No file here is output of any real climate model;
+`hist-demo`, the scenarios `demo-rise` and `demo-steady` (lower, levelling off) are invented. No file here is output of any real climate model;
 do not use these numbers for anything but testing and learning the tool.
 
 Global means follow a two-layer energy-balance model with deep-ocean heat-uptake efficacy
@@ -36,8 +37,10 @@ truth.csv            true parameters per model and member, and what a noise-free
                      (Gregory fit over years 1-150 of abrupt-4xCO2, early/late slopes, components, TCR).
                      F4x = 2 x F2x exactly (column forcing_ratio_4x). Drifts are per century.
                      Branch years count control years from 0 at the control's first January.
-scenario_forcing.csv true effective radiative forcing (W m-2, annual means) of hist-demo then demo-rise
-                     for each model (the reference curve scaled by F2x / 3.71).
+scenario_forcing.csv true effective radiative forcing (W m-2, annual means) of hist-demo, demo-rise and
+                     demo-steady for each model (the reference curve scaled by F2x / 3.71).
+user_forcing.csv     an invented user pathway no model ran (W m-2 by calendar year, for a model with
+                     F2x = 3.71): hist-demo's forcing, then an overshoot; longer than any run.
 """
 
 
@@ -81,7 +84,7 @@ def generate(root, *, n_models: int = 8, seed: int = 0, grid=DEFAULT_GRID, years
     Parameters
     ----------
     root : folder to write into; gets `archive/` (CMIP DRS folders), `truth.csv`,
-        `scenario_forcing.csv` and `README.txt`
+        `scenario_forcing.csv`, `user_forcing.csv` and `README.txt`
     n_models : number of invented models
     seed : the ensemble is a deterministic function of (seed, n_models, grid, years)
     grid : (nlat, nlon) of the regular latitude–longitude grid, or "NLATxNLON"
@@ -143,6 +146,10 @@ def generate(root, *, n_models: int = 8, seed: int = 0, grid=DEFAULT_GRID, years
                   f"({len(model.runs)} runs) in {time.perf_counter() - t0:.1f} s", file=sys.stderr, flush=True)
     write_csv(root / "truth.csv", truth, TRUTH_COLUMNS)
     write_csv(root / "scenario_forcing.csv", forcing, FORCING_COLUMNS)
+    n_hist = models[0].run(HISTORICAL).n_years
+    pathway = user_pathway(n_hist)
+    write_csv(root / "user_forcing.csv", [{"year": HISTORICAL_START_YEAR + k, "erf": float(v)}
+                                          for k, v in enumerate(pathway)], ["year", "erf"])
     readme = _README.format(seed=seed, n=n_models, nlat=nlat, nlon=nlon,
                             names=", ".join(m.source_id for m in models))
     (root / "README.txt").write_text(readme)

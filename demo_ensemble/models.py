@@ -10,7 +10,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 __all__ = [
-    "CONTROL", "ABRUPT", "ONEPCT", "HISTORICAL", "SCENARIO", "ROLES", "DEFAULT_YEARS",
+    "CONTROL", "ABRUPT", "ONEPCT", "HISTORICAL", "SCENARIO", "SCENARIO_LOW", "SCENARIOS", "ROLES", "DEFAULT_YEARS",
     "Run", "ModelSpec", "draw_models", "FORCING_RATIO_4X",
 ]
 
@@ -21,6 +21,8 @@ ABRUPT = "abrupt-4xCO2"
 ONEPCT = "1pctCO2"
 HISTORICAL = "hist-demo"
 SCENARIO = "demo-rise"
+SCENARIO_LOW = "demo-steady"  # a lower scenario whose forcing levels off (issue 13)
+SCENARIOS = (SCENARIO, SCENARIO_LOW)  # both continue the historical-type run, over the same years
 ROLES = {"control": CONTROL, "abrupt": ABRUPT, "onepct": ONEPCT, "historical": HISTORICAL, "scenario": SCENARIO}
 DEFAULT_YEARS = {"control": 250, "abrupt": 150, "onepct": 150, "historical": 100, "scenario": 60}
 
@@ -204,9 +206,10 @@ def draw_models(n_models: int, seed: int, years: dict | None = None) -> list[Mod
         b = _branch(rng, lengths["control"], lengths["historical"] + lengths["scenario"])
         runs.append(Run(HISTORICAL, "historical", "r1i1p1f1", lengths["historical"], HISTORICAL_START_YEAR,
                         float(b), CONTROL, "r1i1p1f1", b))
-        runs.append(Run(SCENARIO, "scenario", "r1i1p1f1", lengths["scenario"],
-                        HISTORICAL_START_YEAR + lengths["historical"], float(b + lengths["historical"]),
-                        HISTORICAL, "r1i1p1f1", lengths["historical"]))
+        for scenario in SCENARIOS:
+            runs.append(Run(scenario, "scenario", "r1i1p1f1", lengths["scenario"],
+                            HISTORICAL_START_YEAR + lengths["historical"], float(b + lengths["historical"]),
+                            HISTORICAL, "r1i1p1f1", lengths["historical"]))
         models.append(ModelSpec(
             index=i, seed=int(seed), source_id=_name(i), institution_id=institution_id, institution=institution,
             calendar=calendar, time_units=units, control_start_year=control_start, file_years=file_years,

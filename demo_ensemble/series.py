@@ -27,12 +27,12 @@ from sensemble.emulator.ebm import TwoLayerParameters, integrate
 
 from .calendar import month_days
 from .forcing import chain_forcing, run_forcing
-from .models import ABRUPT, CONTROL, HISTORICAL, ONEPCT, SCENARIO, ModelSpec, Run
+from .models import ABRUPT, CONTROL, HISTORICAL, ONEPCT, SCENARIO, SCENARIO_LOW, SCENARIOS, ModelSpec, Run
 
 __all__ = ["VARIABLES", "RunSeries", "simulate", "parameters"]
 
 VARIABLES = ("tas", "rsdt", "rsut", "rlut", "rsutcs", "rlutcs")
-_EXPERIMENT_CODES = {CONTROL: 0, ABRUPT: 1, ONEPCT: 2, HISTORICAL: 3, SCENARIO: 3}
+_EXPERIMENT_CODES = {CONTROL: 0, ABRUPT: 1, ONEPCT: 2, HISTORICAL: 3, SCENARIO: 3, SCENARIO_LOW: 4}
 
 
 @dataclass
@@ -67,13 +67,17 @@ def _ar1_innovation_sd(r: float, annual_sd: float) -> float:
     return marginal * np.sqrt(1.0 - r * r)
 
 
-def _noise(model: ModelSpec, run: Run, n_months: int) -> dict:
+def _noise(model: ModelSpec, run: Run, n_months: int, start: float | None = None) -> dict:
+    """Internal variability of a run; `start` continues the AR(1) from its parent's last month (a branch)."""
     rng = np.random.default_rng([model.seed, model.index, 1, _EXPERIMENT_CODES[run.experiment_id],
                                  _member_code(run.member)])
     r = model.ar1
     innov = rng.standard_normal(n_months) * _ar1_innovation_sd(r, model.tas_annual_sd)
-    innov[0] /= np.sqrt(1.0 - r * r)  # start from the stationary distribution
-    tas = lfilter([1.0], [1.0, -r], innov)
+    if start is None:
+        innov[0] /= np.sqrt(1.0 - r * r)  # start from the stationary distribution
+        tas = lfilter([1.0], [1.0, -r], innov)
+    else:
+        tas = lfilter([1.0], [1.0, -r], innov, zi=[r * start])[0]
     radiative = -model.lambda_ * tas
     out = {"tas": tas}
     for comp, frac in (("lw_cs", model.fraction_lw_cs), ("sw_cs", model.fraction_sw_cs),
@@ -88,14 +92,15 @@ def _responses(model: ModelSpec) -> dict:
     n_hist, n_scen = runs[HISTORICAL].n_years, runs[SCENARIO].n_years
     forcings = [run_forcing(model, ABRUPT, runs[ABRUPT].n_years),
                 run_forcing(model, ONEPCT, runs[ONEPCT].n_years),
-                chain_forcing(model, n_hist, n_scen)]
+                chain_forcing(model, n_hist, n_scen),
+                chain_forcing(model, n_hist, n_scen, SCENARIO_LOW)]
     n = max(len(f) for f in forcings)
     stacked = np.zeros((len(forcings), n))
     for k, f in enumerate(forcings):
         stacked[k, : len(f)] = f
     temp, deep = integrate(stacked, parameters(model), annual_mean=True, dt=1.0 / 12.0)
     out = {}
-    for k, (key, f) in enumerate(zip((ABRUPT, ONEPCT, "chain"), forcings)):
+    for k, (key, f) in enumerate(zip((ABRUPT, ONEPCT, "chain", "chain_low"), forcings)):
         t, td = temp[k, : len(f)], deep[k, : len(f)]
         resp = -model.lambda_ * t - (model.efficacy - 1.0) * model.exchange * (t - td)
         m = model.cloud_masking
@@ -106,9 +111,10 @@ def _responses(model: ModelSpec) -> dict:
             "cre": -m * f + model.fraction_cre * resp,
         }
     split = 12 * n_hist
-    chain = out.pop("chain")
+    chain, chain_low = out.pop("chain"), out.pop("chain_low")
     out[HISTORICAL] = {k: v[:split] for k, v in chain.items()}
     out[SCENARIO] = {k: v[split:] for k, v in chain.items()}
+    out[SCENARIO_LOW] = {k: v[split:] for k, v in chain_low.items()}
     return out
 
 
@@ -124,6 +130,15 @@ def simulate(model: ModelSpec, *, noise: bool = True) -> dict:
     responses = _responses(model)
     chain_noise = None
     out = {}
+
+    def historical_chain_noise() -> dict:
+        # the historical-type run and demo-rise share one noise stream (drawn once)
+        nonlocal chain_noise
+        if chain_noise is None:
+            hist = model.run(HISTORICAL)
+            chain_noise = _noise(model, hist, 12 * (hist.n_years + model.run(SCENARIO).n_years))
+        return chain_noise
+
     for run in model.runs:
         n = 12 * run.n_years
         tau = run.control_offset + (np.arange(n) + 0.5) / 12.0
@@ -136,11 +151,12 @@ def simulate(model: ModelSpec, *, noise: bool = True) -> dict:
             var = {k: np.zeros(n) for k in ("tas", "lw_cs", "sw_cs", "cre")}
         elif run.experiment_id in (HISTORICAL, SCENARIO):
             # the scenario continues the historical-type run: one noise stream across both
-            if chain_noise is None:
-                hist = model.run(HISTORICAL)
-                chain_noise = _noise(model, hist, 12 * (hist.n_years + model.run(SCENARIO).n_years))
             lo = 0 if run.experiment_id == HISTORICAL else 12 * model.run(HISTORICAL).n_years
-            var = {k: v[lo: lo + n] for k, v in chain_noise.items()}
+            var = {k: v[lo: lo + n] for k, v in historical_chain_noise().items()}
+        elif run.experiment_id == SCENARIO_LOW:
+            # branches from the historical-type run's last month: its own noise, continuing that state
+            last = 12 * model.run(HISTORICAL).n_years - 1
+            var = _noise(model, run, n, start=float(historical_chain_noise()["tas"][last]))
         else:
             var = _noise(model, run, n)
         a_lw = resp["lw_cs"] + var["lw_cs"]

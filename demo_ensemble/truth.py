@@ -20,7 +20,7 @@ import numpy as np
 
 from .calendar import annual_mean
 from .forcing import REFERENCE_F2X, month_times, reference_chain
-from .models import ABRUPT, FORCING_RATIO_4X, HISTORICAL, ONEPCT, SCENARIO, ModelSpec
+from .models import ABRUPT, FORCING_RATIO_4X, HISTORICAL, ONEPCT, SCENARIO, SCENARIOS, ModelSpec
 
 __all__ = ["TRUTH_COLUMNS", "FORCING_COLUMNS", "truth_rows", "forcing_rows", "write_csv", "gregory_targets"]
 
@@ -112,18 +112,18 @@ def truth_rows(model: ModelSpec, noise_free: dict) -> list[dict]:
 
 
 def forcing_rows(model: ModelSpec, noise_free: dict) -> list[dict]:
-    """Annual true forcing of the historical-type run and its scenario (month-length weighted)."""
+    """Annual true forcing of the historical-type run and each scenario continuing it (month-length weighted)."""
     rows = []
     hist = model.run(HISTORICAL)
-    offset = 0
-    for exp in (HISTORICAL, SCENARIO):
+    for exp in (HISTORICAL,) + SCENARIOS:
         s = noise_free[(exp, "r1i1p1f1")]
+        offset = 0 if exp == HISTORICAL else hist.n_years
         erf = annual_mean(s.response["erf"], s.days)
-        ref = annual_mean(reference_chain(offset + month_times(s.run.n_years), hist.n_years), s.days)
+        ref = annual_mean(reference_chain(offset + month_times(s.run.n_years), hist.n_years,
+                                          SCENARIO if exp == HISTORICAL else exp), s.days)
         for k in range(len(erf)):
             rows.append({"model": model.source_id, "experiment_id": exp, "year": s.run.start_year + k,
                          "erf": erf[k], "erf_reference": ref[k], "scale": model.f2x / REFERENCE_F2X})
-        offset += s.run.n_years
     return rows
 
 

@@ -360,7 +360,7 @@ def test_forcing_table_is_the_forcing_in_the_files(noise_free, models):
     checked = 0
     for model in models:
         row = truth[(model.source_id, "r1i1p1f1")]
-        rows = [r for r in table if r["model"] == model.source_id]
+        rows = [r for r in table if r["model"] == model.source_id and r["experiment_id"] != "demo-steady"]
         assert [r["experiment_id"] for r in rows] == ["hist-demo"] * 20 + ["demo-rise"] * 10
         scen = np.array([float(r["erf"]) for r in rows if r["experiment_id"] == "demo-rise"])
         # (leap years shift a month-length-weighted annual mean of a ramp by ~1e-4 of a year's rise)
@@ -383,3 +383,28 @@ def test_forcing_table_is_the_forcing_in_the_files(noise_free, models):
         np.testing.assert_allclose(np.concatenate(diagnosed), [float(r["erf"]) for r in rows], atol=2e-3)
         checked += 1
     assert checked >= 1
+
+
+def test_second_scenario_is_lower_and_levels_off(noise_free, models):
+    # Invented demo-steady: F_join + 1.0 (1 − e^(−s/25)) W m-2 (reference F2x), scaled by F2x/3.71 (the
+    # generator's own definition, demo_ensemble/forcing.py); it starts where demo-rise starts, stays below it,
+    # and its yearly rise shrinks by e^(−1/25) a year (leap years shift a month-length-weighted annual mean
+    # by ~1e-3 of a year's change, as for demo-rise above).
+    root, archive = noise_free
+    with open(root / "scenario_forcing.csv", newline="") as fh:
+        table = list(csv.DictReader(fh))
+    for model in models:
+        rise = np.array([float(r["erf"]) for r in table if r["model"] == model.source_id
+                         and r["experiment_id"] == "demo-rise"])
+        steady = np.array([float(r["erf"]) for r in table if r["model"] == model.source_id
+                           and r["experiment_id"] == "demo-steady"])
+        assert len(steady) == len(rise) == 10
+        assert steady[0] == pytest.approx(rise[0], abs=0.02 * model.f2x / 3.71)
+        assert np.all(steady[1:] < rise[1:])
+        step = np.diff(steady)
+        np.testing.assert_allclose(step[1:] / step[:-1], np.exp(-1 / 25), rtol=3e-3)
+        assert len(run_files(archive, model.source_id, "demo-steady", "r1i1p1f1", "tas")) >= 1
+    user = list(csv.DictReader(open(root / "user_forcing.csv", newline="")))
+    assert len(user) == 251 and user[0]["year"] == "1915"
+    values = np.array([float(r["erf"]) for r in user])
+    assert values[0] < 0.05 and values.argmax() > 20  # starts near zero, peaks after the historical part

@@ -13,6 +13,8 @@ _EXPORTS = {
     "PathwayEmulator": "gp", "EnsembleEmulator": "ensemble", "load_training_set": "training", "calibrate_two_layer": "calibrate",
     "save_emulator": "persist", "load_emulator": "persist", "EmulatorInputError": "errors",
     "parse_point": "predict", "parse_distribution": "predict",
+    "ParameterEmulator": "parameters", "ParameterPathwayEmulator": "parameter_pathways",
+    "emulate_pathways": "scenario_batch", "format_pathways_summary": "scenario_batch",
 }
 __all__ = sorted(_EXPORTS)
 

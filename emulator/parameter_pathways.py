@@ -75,6 +75,7 @@ class ParameterPathwayEmulator(BaseEstimator):
     """
 
     route_ = ROUTE_NAME
+    sampled_quantiles = True  # skewed predictive distribution: quantiles from samples (emulator.predict)
     _parameter_constraints = {
         "forcing_source": [("diagnosed", "file", "co2")], "scale_to_f2x": [bool], "efficacy": [bool],
         "internal_variability": [bool], "structural_scatter": [bool], "small_sample": [bool],

@@ -250,10 +250,15 @@ def predict_cases(emulator, cases, *, training_X, years, calendar_years=None, th
                                          + ("; " if missing and extra else "")
                                          + (f"unknown input(s) {', '.join(extra)} (emulator inputs: {', '.join(inputs)})" if extra else ""))
             x = np.array([[case.values[c] for c in inputs]])
-            mean, sd = emulator.predict(x, return_std=True)
-            mean, sd = mean[0], sd[0]
-            q = mean[None, :] + z[:, None] * sd[None, :]
             paths = emulator.sample_paths(x, n_samples, random_state=rng)[0]
+            if getattr(emulator, "sampled_quantiles", False):
+                # a predictive distribution that is not Gaussian (the parameter route): the samples' own
+                mean, sd = paths.mean(axis=0), paths.std(axis=0, ddof=1)
+                q = np.quantile(paths, quantiles, axis=0)
+            else:
+                mean, sd = emulator.predict(x, return_std=True)
+                mean, sd = mean[0], sd[0]
+                q = mean[None, :] + z[:, None] * sd[None, :]
             outside = np.any((x < lo) | (x > hi))
             flag = "extrapolated" if outside else ""
             shown = x[0]

@@ -60,6 +60,9 @@ class EmulatorSettings:
     co2_reference: float = 278.0  # ppm, C0 of the CO2 forcing formula
     validate: bool = True  # leave-one-model-out validation (needs ≥ 4 models)
     validation_samples: int = 1000  # sampled pathways per held-out run for its end-of-pathway interval
+    # several scenarios in one batch (emulator.scenario_batch): each {name, experiment | forcing_file | co2_file,
+    # route = "auto" | "gp" | "parameters"}; when given, `scenario` and `forcing_source` are not used
+    pathways: tuple[dict, ...] = ()
 
     # Allowed values: the estimator's own declaration for the fields it takes, and the run's own fields.
     _parameter_constraints = {

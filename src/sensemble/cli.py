@@ -286,6 +286,12 @@ def _run_emulate(source, out, config, console: Console):
     prediction = config.prediction
     if not config.output.figures:
         prediction = dataclasses.replace(prediction, figures=False)
+    if config.emulator.pathways:  # several scenarios: the archive's, forcing files, CO2 files
+        from sensemble.emulator.scenario_batch import emulate_pathways, format_pathways_summary
+
+        summary = emulate_pathways(source, out, config.emulator, prediction, progress=console)
+        console(format_pathways_summary(summary))
+        return summary
     result = emulate(source, out, config.emulator, prediction, progress=console)
     console(format_summary(result.summary))
     return result
@@ -343,8 +349,12 @@ def cmd_demo(args, console: Console) -> int:
 
     out = Path(args.out)
     config = load_config(shipped_config("demo"), check_paths=False)
+    # the demo's user pathway (an invented forcing file written beside the archive) joins its scenarios
+    pathways = tuple(config.emulator.pathways) + (
+        {"name": "user-overshoot", "forcing_file": str(out.resolve() / "user_forcing.csv")},)
     config = merge_overrides(config, archive=str(out / "archive"), out=str(out), workers=args.workers,
-                             force=args.force or None, quiet=args.quiet or None, check_paths=False)
+                             force=args.force or None, quiet=args.quiet or None, pathways=pathways,
+                             check_paths=False)
     console.open_log(out, _header(args))
     kwargs = {"n_models": args.models, "seed": args.seed}
     if args.grid:

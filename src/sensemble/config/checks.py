@@ -23,6 +23,7 @@ def check_together(config: BatchConfig, source: str, check_paths: bool) -> None:
     _check_extraction(config, source)
     inputs = _check_emulator(config, source)
     _check_cases(config, source, inputs)
+    _check_pathways(config, source, check_paths)
     _check_grid(config, source, inputs)
     _check_compute(config, source)
     if check_paths:
@@ -118,6 +119,22 @@ def _check_emulator(config: BatchConfig, source: str) -> tuple[str, ...]:
 def _table_columns() -> tuple[str, ...]:
     """The sensitivity table's numeric columns: what the emulator can take as inputs."""
     return tuple(c for c in ALL_COLUMNS if c not in TEXT_COLUMNS)
+
+
+def _check_pathways(config: BatchConfig, source: str, check_paths: bool) -> None:
+    """[[emulator.pathways]]: each names one experiment, forcing file or CO2 file, and a known route."""
+    items = getattr(config.emulator, "pathways", ())
+    if not items:
+        return
+    from sensemble.emulator.errors import EmulatorInputError
+    from sensemble.emulator.scenario_batch import pathway_specs
+
+    if not all(isinstance(item, dict) for item in items):
+        raise ConfigError(f"{source}: [[emulator.pathways]] entries must be tables")
+    try:
+        pathway_specs(items, check_files=check_paths)
+    except EmulatorInputError as err:
+        raise ConfigError(f"{source}: [[emulator.pathways]] {err}") from None
 
 
 def _check_cases(config: BatchConfig, source: str, inputs: tuple[str, ...]) -> None:

@@ -115,6 +115,10 @@ def _read_value(source: str, section: str, key: str, raw, base: Path):
     if value is not None and is_path_key(section, key, hint):
         resolved = resolve(value, base)
         value = resolved if isinstance(value, Path) else str(resolved)
+    if (section, key) == ("emulator", "pathways"):
+        # the files a pathway table names are taken from the config's folder, like every other *_file key
+        value = tuple({k: (str(resolve(v, base)) if k.endswith("_file") and isinstance(v, str) and v else v)
+                       for k, v in item.items()} if isinstance(item, dict) else item for item in value)
     return value
 
 

@@ -3,6 +3,8 @@
 All model names, institutions, the historical-type experiment and the scenario are invented.
 """
 from .generate import DEFAULT_GRID, generate
-from .models import ABRUPT, CONTROL, DEFAULT_YEARS, HISTORICAL, ONEPCT, SCENARIO
+from .forcing import REFERENCE_F2X
+from .models import ABRUPT, CONTROL, DEFAULT_YEARS, HISTORICAL, ONEPCT, SCENARIO, SCENARIO_LOW, SCENARIOS
 
-__all__ = ["generate", "DEFAULT_GRID", "DEFAULT_YEARS", "CONTROL", "ABRUPT", "ONEPCT", "HISTORICAL", "SCENARIO"]
+__all__ = ["generate", "DEFAULT_GRID", "DEFAULT_YEARS", "CONTROL", "ABRUPT", "ONEPCT", "HISTORICAL", "SCENARIO",
+           "SCENARIO_LOW", "SCENARIOS", "REFERENCE_F2X"]

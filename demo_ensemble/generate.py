@@ -10,8 +10,10 @@ from . import generations
 from .calendar import date_number, month_bounds, month_starts
 from .fields import make_grid, recipes
 from .files import branch_attributes, write_areacella, write_run
-from .forcing import user_pathway
-from .models import HISTORICAL, HISTORICAL_START_YEAR, draw_models
+import numpy as np
+
+from .forcing import reference_chain, user_pathway
+from .models import HISTORICAL, HISTORICAL_START_YEAR, SCENARIO, SCENARIOS, draw_models
 from .series import VARIABLES, simulate
 from .truth import FORCING_COLUMNS, TRUTH_COLUMNS, forcing_rows, truth_rows, write_csv
 
@@ -39,6 +41,8 @@ truth.csv            true parameters per model and member, and what a noise-free
                      Branch years count control years from 0 at the control's first January.
 scenario_forcing.csv true effective radiative forcing (W m-2, annual means) of hist-demo, demo-rise and
                      demo-steady for each model (the reference curve scaled by F2x / 3.71).
+forcing_<scenario>.csv  the true forcing of hist-demo followed by that scenario (W m-2 by calendar year, for
+                     a model with F2x = 3.71; each model's is this times its F2x / 3.71).
 user_forcing.csv     an invented user pathway no model ran (W m-2 by calendar year, for a model with
                      F2x = 3.71): hist-demo's forcing, then an overshoot; longer than any run.
 """
@@ -84,7 +88,7 @@ def generate(root, *, n_models: int = 8, seed: int = 0, grid=DEFAULT_GRID, years
     Parameters
     ----------
     root : folder to write into; gets `archive/` (CMIP DRS folders), `truth.csv`,
-        `scenario_forcing.csv`, `user_forcing.csv` and `README.txt`
+        `scenario_forcing.csv`, `forcing_<scenario>.csv`, `user_forcing.csv` and `README.txt`
     n_models : number of invented models
     seed : the ensemble is a deterministic function of (seed, n_models, grid, years)
     grid : (nlat, nlon) of the regular latitude–longitude grid, or "NLATxNLON"
@@ -150,6 +154,11 @@ def generate(root, *, n_models: int = 8, seed: int = 0, grid=DEFAULT_GRID, years
     pathway = user_pathway(n_hist)
     write_csv(root / "user_forcing.csv", [{"year": HISTORICAL_START_YEAR + k, "erf": float(v)}
                                           for k, v in enumerate(pathway)], ["year", "erf"])
+    n_scen = models[0].run(SCENARIO).n_years
+    for scenario in SCENARIOS:  # each scenario's reference forcing from the historical-type run's start
+        values = reference_chain(np.arange(n_hist + n_scen) + 0.5, n_hist, scenario)
+        write_csv(root / f"forcing_{scenario}.csv", [{"year": HISTORICAL_START_YEAR + k, "erf": float(v)}
+                                                     for k, v in enumerate(values)], ["year", "erf"])
     readme = _README.format(seed=seed, n=n_models, nlat=nlat, nlon=nlon,
                             names=", ".join(m.source_id for m in models))
     (root / "README.txt").write_text(readme)

@@ -9,12 +9,16 @@ realisation, as the archive's runs are. The whole forcing pathway is run: no tra
 """
 from __future__ import annotations
 
+from dataclasses import replace
+
 import numpy as np
+import xarray as xr
 from sklearn.base import BaseEstimator
 
 from .ebm import integrate
 from .ensemble import FORCING_RATIO, calibrate_runs
 from .errors import EmulatorInputError
+from .forcing import align_forcing
 from .parameters import ParameterEmulator, parameter_table
 from .scenarios import ScenarioForcing, co2_scenario, diagnosed_scenario, file_scenario
 from .training import TrainingSet
@@ -61,8 +65,11 @@ class ParameterPathwayEmulator(BaseEstimator):
     ----------
     inputs : sensitivity-table columns (default ecs_eff)
     forcing_source : "diagnosed" | "file" | "co2"; forcing_file, co2_file, co2_reference (C0, ppm) as for
-        `EnsembleEmulator`; scale_to_f2x : a forcing file is the forcing of a median-F2x model, each sampled
-        vector's forcing scales with its F2x (False: the file's values for every vector)
+        `EnsembleEmulator`; scale_to_f2x : a forcing file is the forcing of a model with F2x = `forcing_f2x`
+        (default: the ensemble's median), each sampled vector's forcing scales with its F2x (False: the
+        file's values for every vector)
+    match_runs : with a file and a training set that holds the scenario's runs, predict exactly the runs'
+        years (matched on calendar years, else run years): for validating a forcing file against the runs
     efficacy : calibrate ε (Geoffroy et al. 2013b); internal_variability : add the control runs' AR(1)
     structural_scatter, small_sample : passed to `ParameterEmulator`
     n_moments : sampled pathways behind `predict`'s mean and sd; random_state : their seed
@@ -79,18 +86,21 @@ class ParameterPathwayEmulator(BaseEstimator):
     _parameter_constraints = {
         "forcing_source": [("diagnosed", "file", "co2")], "scale_to_f2x": [bool], "efficacy": [bool],
         "internal_variability": [bool], "structural_scatter": [bool], "small_sample": [bool],
-        "n_moments": [(2, None)], "co2_reference": [(0.0, None)],
+        "n_moments": [(2, None)], "co2_reference": [(0.0, None)], "match_runs": [bool],
     }
 
     def __init__(self, inputs=("ecs_eff",), forcing_source="diagnosed", forcing_file=None, co2_file=None,
-                 co2_reference=278.0, scale_to_f2x=True, efficacy=False, internal_variability=True,
-                 structural_scatter=True, small_sample=True, n_moments=4000, random_state=0):
+                 co2_reference=278.0, scale_to_f2x=True, forcing_f2x=None, match_runs=False, efficacy=False,
+                 internal_variability=True, structural_scatter=True, small_sample=True, n_moments=4000,
+                 random_state=0):
         self.inputs = inputs
         self.forcing_source = forcing_source
         self.forcing_file = forcing_file
         self.co2_file = co2_file
         self.co2_reference = co2_reference
         self.scale_to_f2x = scale_to_f2x
+        self.forcing_f2x = forcing_f2x
+        self.match_runs = match_runs
         self.efficacy = efficacy
         self.internal_variability = internal_variability
         self.structural_scatter = structural_scatter
@@ -140,11 +150,19 @@ class ParameterPathwayEmulator(BaseEstimator):
 
     def _scenario(self, ts: TrainingSet, ok, vectors) -> ScenarioForcing:
         name = ts.scenario or "forcing"
-        if self.forcing_source == "file":
-            median_f2x = float(np.median(self.parameters_.parameters_train_[:, 0]))
-            return file_scenario(name, self.forcing_file, median_f2x if self.scale_to_f2x else None)
-        if self.forcing_source == "co2":
-            return co2_scenario(name, self.co2_file, self.co2_reference)
+        if self.forcing_source in ("file", "co2"):
+            if self.forcing_source == "file":
+                reference = self.forcing_f2x or float(np.median(self.parameters_.parameters_train_[:, 0]))
+                scenario = file_scenario(name, self.forcing_file, reference if self.scale_to_f2x else None)
+            else:
+                scenario = co2_scenario(name, self.co2_file, self.co2_reference)
+            if self.match_runs and ts.Y.shape[1]:
+                series = xr.DataArray(scenario.reference, coords={"year": scenario.years}, dims="year",
+                                      attrs={"source_file": self.forcing_file or self.co2_file})
+                values, how = align_forcing(series, ts.years, ts.calendar_years, allow_longer=True)
+                scenario = replace(scenario, years=np.asarray(ts.years), reference=values,
+                                   calendar_years=ts.calendar_years, source=f"{scenario.source} (on the runs' {how}s)")
+            return scenario
         if ts.Y.shape[1] == 0:
             raise EmulatorInputError("a diagnosed forcing needs the scenario's runs",
                                      hint="name an experiment of the archive, or give a forcing or CO2 file")

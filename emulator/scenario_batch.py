@@ -8,6 +8,9 @@ Each pathway spec (config `[[emulator.pathways]]`) names one scenario: an `exper
   — any forcing, over all its years;
 - "auto" (default): for an experiment both routes are validated leave-one-model-out and the one with the
   smaller end-of-pathway RMSE predicts; a file can only take the parameter route.
+An experiment may also name its known `forcing_file` or `co2_file` (with `forcing_f2x`, the F2x the file's
+forcing belongs to): the parameter route is then also validated with that forcing — leave-one-model-out with
+no run of the scenario used at all, not even for the forcing (`holdout` = "scenario" in `validation.csv`).
 Outputs keyed by scenario, with the route that produced each pathway: `pathways.csv`, `crossings.csv`,
 `crossing_ecs.csv` (crossing years against ECS), `validation.csv` (both routes, per scenario),
 `scenarios.csv` (what each scenario is, its forcing and route), `calibration.csv`, figures.
@@ -48,10 +51,19 @@ class PathwaySpec:
     forcing_file: str | None = None
     co2_file: str | None = None
     route: str = "auto"
+    forcing_f2x: float | None = None  # F2x (W m-2) a forcing file's values belong to; None: ensemble median
 
     @property
     def kind(self) -> str:
         return "archive" if self.experiment else ("file" if self.forcing_file else "co2")
+
+    def forcing(self) -> dict:
+        """`ParameterPathwayEmulator` keywords of the spec's file, if it names one."""
+        if self.forcing_file:
+            return {"forcing_source": "file", "forcing_file": self.forcing_file, "forcing_f2x": self.forcing_f2x}
+        if self.co2_file:
+            return {"forcing_source": "co2", "co2_file": self.co2_file}
+        return {}
 
 
 def pathway_specs(items, available: dict | None = None, check_files: bool = True) -> list[PathwaySpec]:
@@ -61,27 +73,32 @@ def pathway_specs(items, available: dict | None = None, check_files: bool = True
     for number, item in enumerate(items, start=1):
         item = dict(item)
         label = f"pathway #{number}" + (f" '{item['name']}'" if "name" in item else "")
-        unknown = sorted(set(item) - {"name", "route", *_SOURCES})
+        unknown = sorted(set(item) - {"name", "route", "forcing_f2x", *_SOURCES})
         if unknown:
             raise EmulatorInputError(f"{label}: unknown key(s) {', '.join(unknown)}",
-                                     hint=f"use name, route and one of {', '.join(_SOURCES)}")
-        given = [k for k in _SOURCES if item.get(k)]
-        if len(given) != 1:
-            raise EmulatorInputError(f"{label}: give exactly one of {', '.join(_SOURCES)} (got {len(given)})")
+                                     hint=f"use name, route, forcing_f2x and {', '.join(_SOURCES)}")
+        files = [k for k in _SOURCES[1:] if item.get(k)]
+        if len(files) > 1 or not (files or item.get("experiment")):
+            raise EmulatorInputError(f"{label}: give an experiment, a forcing_file or a co2_file (an experiment "
+                                     f"may add one file: its known forcing); got {len(files)} files")
         route = item.get("route", "auto")
         if route not in ROUTES:
             raise EmulatorInputError(f"{label}: route {route!r} is not one of {', '.join(ROUTES)}")
-        source = item[given[0]]
-        name = str(item.get("name") or (source if given[0] == "experiment" else Path(source).stem))
-        spec = PathwaySpec(name, route=route, **{given[0]: str(source)})
+        f2x = item.get("forcing_f2x")
+        if f2x is not None and (isinstance(f2x, bool) or not isinstance(f2x, (int, float)) or f2x <= 0):
+            raise EmulatorInputError(f"{label}: forcing_f2x must be a positive number (W m-2), got {f2x!r}")
+        name = str(item.get("name") or item.get("experiment") or Path(item[files[0]]).stem)
+        spec = PathwaySpec(name, route=route, forcing_f2x=None if f2x is None else float(f2x),
+                           **{k: str(item[k]) for k in _SOURCES if item.get(k)})
         if spec.kind != "archive" and route == "gp":
-            raise EmulatorInputError(f"{label}: the gp route needs the scenario's runs; a {given[0]} has none",
+            raise EmulatorInputError(f"{label}: the gp route needs the scenario's runs; a {files[0]} has none",
                                      hint='use route = "parameters" (or "auto")')
         if spec.kind == "archive" and available is not None and spec.experiment not in available:
             raise EmulatorInputError(f"{label}: experiment {spec.experiment!r} is not in the archive's series; "
                                      f"available: {', '.join(sorted(available)) or 'none'}")
-        if check_files and spec.kind != "archive" and not Path(source).is_file():
-            raise EmulatorInputError(f"{label}: no such file", path=source)
+        for key in files:
+            if check_files and not Path(item[key]).is_file():
+                raise EmulatorInputError(f"{label}: no such {key}", path=item[key])
         specs.append(spec)
     names = [s.name for s in specs]
     if len(set(names)) != len(names):
@@ -141,7 +158,7 @@ def emulate_pathways(extract_dir, out_dir, settings: EmulatorSettings, predictio
     calibration = calibrate_runs(physics, efficacy=settings.efficacy)  # every run's, whatever its scenarios
     for spec in specs:
         say(f"scenario {spec.name} ({spec.kind}, route {spec.route})")
-        scores, reason = {}, ""
+        scores, reason, held_out_scenario = {}, "", None
         if spec.kind == "archive":
             ts = load_training_set(extract_dir, spec.experiment, inputs)
             candidates = {"gp": EnsembleEmulator.from_settings(replace(settings, forcing_source="diagnosed")),
@@ -157,6 +174,15 @@ def emulate_pathways(extract_dir, out_dir, settings: EmulatorSettings, predictio
                     validation.append(_keyed(validation_table(per_run, summary), spec.name, route)
                                       .assign(holdout="model"))
                     scores[route] = summary
+                if spec.forcing():
+                    # the scenario's known forcing instead of its runs: no run of the scenario is used at all
+                    per_run, summary = leave_one_model_out(
+                        ts, _parameter_route(settings, match_runs=True, **spec.forcing()),
+                        n_samples=settings.validation_samples, random_state=settings.random_state,
+                        progress=lambda m: say(f"  parameters, known forcing: {m}"))
+                    validation.append(_keyed(validation_table(per_run, summary), spec.name, "parameters")
+                                      .assign(holdout="scenario"))
+                    held_out_scenario = summary
             route = spec.route
             if route == "auto":
                 if scores:
@@ -172,9 +198,7 @@ def emulate_pathways(extract_dir, out_dir, settings: EmulatorSettings, predictio
             forcing_source = (emulator.scenario_.source if route == "parameters" else emulator.forcing_source_)
         else:
             route, reason = "parameters", "the only route for a pathway no model ran"
-            forcing = ({"forcing_source": "file", "forcing_file": spec.forcing_file} if spec.kind == "file"
-                       else {"forcing_source": "co2", "co2_file": spec.co2_file})
-            emulator = _parameter_route(settings, **forcing).fit(replace(physics, scenario=spec.name))
+            emulator = _parameter_route(settings, **spec.forcing()).fit(replace(physics, scenario=spec.name))
             X, models = physics.X, physics.models
             years = calendar = emulator.scenario_.years
             forcing_source = emulator.scenario_.source
@@ -200,7 +224,10 @@ def emulate_pathways(extract_dir, out_dir, settings: EmulatorSettings, predictio
                      "n_years": int(len(years)), "n_models": int(len(set(models))),
                      "prediction_of": emulator.prediction_target_,
                      **{f"end_rmse_{r}": s["end_rmse"] for r, s in scores.items()},
-                     **{f"end_coverage90_{r}": s["end_coverage90"] for r, s in scores.items()}})
+                     **{f"end_coverage90_{r}": s["end_coverage90"] for r, s in scores.items()},
+                     **({"end_rmse_scenario_held_out": held_out_scenario["end_rmse"],
+                         "end_coverage90_scenario_held_out": held_out_scenario["end_coverage90"]}
+                        if held_out_scenario else {})})
     tables = {"pathways.csv": pd.concat(pathways, ignore_index=True),
               "crossings.csv": pd.concat(crossings, ignore_index=True),
               "scenarios.csv": pd.DataFrame(rows)}
@@ -231,9 +258,10 @@ def format_pathways_summary(summary: dict) -> str:
     for row in summary["scenarios"]:
         lines.append(f"scenario {row['scenario']} ({row['kind']}: {row['source']}), years {row['first_year']}–"
                      f"{row['last_year']}: route {row['route']} — {row['route_reason']}")
-        for route in ("gp", "parameters"):
-            if f"end_rmse_{route}" in row:
-                lines.append(f"  leave-one-model-out, {route} route: end-of-pathway RMSE {row[f'end_rmse_{route}']:.3f} K, "
+        for route, what in (("gp", "gp route"), ("parameters", "parameters route"),
+                            ("scenario_held_out", "parameters route with the known forcing, no scenario run used")):
+            if f"end_rmse_{route}" in row and np.isfinite(row[f"end_rmse_{route}"]):
+                lines.append(f"  leave-one-model-out, {what}: end-of-pathway RMSE {row[f'end_rmse_{route}']:.3f} K, "
                              f"90 % coverage {row[f'end_coverage90_{route}']:.2f}")
     lines.append(f"outputs in {summary['out_dir']} ({len(summary['files'])} files, {summary['seconds']} s)")
     return "\n".join(lines)

@@ -57,10 +57,12 @@ def crossing_ecs_figure(table: pd.DataFrame, path) -> Path:
 
 def routes_figure(validation: pd.DataFrame, path) -> Path:
     """Leave-one-model-out end-of-pathway RMSE and 90 % coverage per scenario and route."""
-    total = validation[validation["model"] == "ALL"]
+    total = validation[validation["model"] == "ALL"].copy()
+    held = total["holdout"] if "holdout" in total else "model"
+    total["route"] = np.where(held == "scenario", total["route"] + " (known forcing, no scenario run)", total["route"])
     scenarios = list(dict.fromkeys(total["scenario"]))
     routes = list(dict.fromkeys(total["route"]))
-    fig, axes = plt.subplots(1, 2, figsize=(9, 3.8))
+    fig, axes = plt.subplots(1, 2, figsize=(10, 4.2))
     width = 0.8 / max(len(routes), 1)
     for j, route in enumerate(routes):
         sel = total[total["route"] == route].set_index("scenario").reindex(scenarios)

@@ -349,9 +349,13 @@ def cmd_demo(args, console: Console) -> int:
 
     out = Path(args.out)
     config = load_config(shipped_config("demo"), check_paths=False)
-    # the demo's user pathway (an invented forcing file written beside the archive) joins its scenarios
-    pathways = tuple(config.emulator.pathways) + (
-        {"name": "user-overshoot", "forcing_file": str(out.resolve() / "user_forcing.csv")},)
+    # Files the generator writes beside the archive: each scenario's true forcing (for a model with F2x =
+    # 3.71 W m-2), which validates the parameter route with no scenario run at all, and the invented user pathway.
+    pathways = tuple({**spec, "forcing_file": str(out.resolve() / f"forcing_{spec['experiment']}.csv"),
+                      "forcing_f2x": demo_ensemble.REFERENCE_F2X}
+                     if spec.get("experiment") in demo_ensemble.SCENARIOS and not spec.get("forcing_file") else spec
+                     for spec in config.emulator.pathways)
+    pathways += ({"name": "user-overshoot", "forcing_file": str(out.resolve() / "user_forcing.csv")},)
     config = merge_overrides(config, archive=str(out / "archive"), out=str(out), workers=args.workers,
                              force=args.force or None, quiet=args.quiet or None, pathways=pathways,
                              check_paths=False)

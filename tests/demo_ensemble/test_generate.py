@@ -408,3 +408,18 @@ def test_second_scenario_is_lower_and_levels_off(noise_free, models):
     assert len(user) == 251 and user[0]["year"] == "1915"
     values = np.array([float(r["erf"]) for r in user])
     assert values[0] < 0.05 and values.argmax() > 20  # starts near zero, peaks after the historical part
+
+
+def test_reference_forcing_files_match_the_forcing_table(noise_free, models):
+    # The generator's own bookkeeping (no outside source): forcing_<scenario>.csv is the reference forcing of
+    # hist-demo then the scenario, the column erf_reference of scenario_forcing.csv (a mid-year value against a
+    # month-length-weighted annual mean: equal to 1e-3 W m-2 on these smooth curves).
+    root, _ = noise_free
+    with open(root / "scenario_forcing.csv", newline="") as fh:
+        table = [r for r in csv.DictReader(fh) if r["model"] == models[0].source_id]
+    for scenario in ("demo-rise", "demo-steady"):
+        with open(root / f"forcing_{scenario}.csv", newline="") as fh:
+            rows = list(csv.DictReader(fh))
+        expected = [float(r["erf_reference"]) for r in table if r["experiment_id"] in ("hist-demo", scenario)]
+        assert [int(r["year"]) for r in rows][:2] == [1915, 1916] and len(rows) == len(expected) == 30
+        np.testing.assert_allclose([float(r["erf"]) for r in rows], expected, atol=1e-3)

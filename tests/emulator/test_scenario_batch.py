@@ -16,13 +16,17 @@ FAST = dict(n_restarts_optimizer=0, validation_samples=200)
 def batch(tmp_path_factory):
     root = tmp_path_factory.mktemp("batch")
     src = root / "extract"
-    write_extract_dir(src, n_models=6, n_years=60, members={0: 2}, extra_scenarios=("scen-copy",), control_years=80)
+    truth = write_extract_dir(src, n_models=6, n_years=60, members={0: 2}, extra_scenarios=("scen-copy",),
+                              control_years=80)
+    # the scenario's true forcing (the same for every invented model here, so no F2x scaling)
+    pd.DataFrame({"year": np.arange(2001, 2061), "erf": truth["scenario_forcing"]}).to_csv(root / "known.csv",
+                                                                                            index=False)
     years = np.arange(2001, 2252)
     pd.DataFrame({"year": years, "erf": 4.0 * (1 - np.exp(-(years - 2000) / 60.0))}).to_csv(root / "erf.csv",
                                                                                               index=False)
     pd.DataFrame({"year": years, "co2": 278.0 * 1.004 ** (years - 2000)}).to_csv(root / "co2.csv", index=False)
     settings = EmulatorSettings(pathways=(
-        {"experiment": SCENARIO},
+        {"experiment": SCENARIO, "forcing_file": str(root / "known.csv")},
         {"name": "copy-gp", "experiment": "scen-copy", "route": "gp"},
         {"name": "user", "forcing_file": str(root / "erf.csv")},
         {"name": "co2-path", "co2_file": str(root / "co2.csv")},
@@ -66,6 +70,10 @@ def test_both_routes_validated_and_the_better_one_chosen(batch):
     assert scenarios.loc["user", "n_years"] == 251
     # the copy with route = gp is validated with the gp route only
     assert set(validation[validation["scenario"] == "copy-gp"]["route"]) == {"gp"}
+    # with the scenario's known forcing no run of the scenario is used, and held-out models are still
+    # predicted within a few tenths of a kelvin (common practice, no source)
+    held = validation[(validation["holdout"] == "scenario") & (validation["model"] == "ALL")]
+    assert len(held) == 1 and held["scenario"].iloc[0] == SCENARIO and held["end_rmse"].iloc[0] < 0.3
 
 
 def test_crossing_year_moves_earlier_with_ecs(batch):
@@ -79,8 +87,10 @@ def test_crossing_year_moves_earlier_with_ecs(batch):
 
 def test_bad_specs_are_one_line(tmp_path):
     (tmp_path / "f.csv").write_text("year,erf\n1,0\n")
-    with pytest.raises(EmulatorInputError, match="exactly one of"):
-        pathway_specs([{"name": "x", "experiment": "a", "forcing_file": str(tmp_path / "f.csv")}])
+    with pytest.raises(EmulatorInputError, match="an experiment may add one file"):
+        pathway_specs([{"name": "x", "forcing_file": str(tmp_path / "f.csv"), "co2_file": str(tmp_path / "f.csv")}])
+    with pytest.raises(EmulatorInputError, match="forcing_f2x must be a positive number"):
+        pathway_specs([{"experiment": "a", "forcing_file": str(tmp_path / "f.csv"), "forcing_f2x": -3}])
     with pytest.raises(EmulatorInputError, match="gp route needs the scenario's runs"):
         pathway_specs([{"forcing_file": str(tmp_path / "f.csv"), "route": "gp"}])
     with pytest.raises(EmulatorInputError, match="'nope' is not in the archive"):

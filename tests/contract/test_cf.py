@@ -9,7 +9,8 @@ from sensemble.contract.cf import (ANOMALY_STANDARD_NAMES, CONVENTIONS, TEMPERAT
                                    history_line)
 
 TAS = {"standard_name": "air_temperature", "long_name": "Near-Surface Air Temperature", "units": "K",
-       "units_metadata": "temperature: on_scale", "cell_methods": "area: time: mean", "cell_measures": "area: areacella"}
+       "units_metadata": "temperature: on_scale", "cell_methods": "area: time: mean",
+       "cell_measures": "area: areacella"}
 
 
 def test_conventions_names_the_cf_version():

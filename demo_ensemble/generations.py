@@ -17,6 +17,8 @@ from pathlib import Path
 
 import numpy as np
 
+from sensemble.contract.cf import CONVENTIONS as CF_CONVENTIONS
+
 CMIP5 = "CMIP5"
 CMIP6 = "CMIP6"
 CMIP5_FORMAT = "NETCDF3_CLASSIC"
@@ -60,7 +62,7 @@ def attributes(cmip6: dict, branch: dict | None, ensemble: str) -> dict:
     attrs = {k: v for k, v in cmip6.items() if k not in _CMIP6_ONLY}
     indices = [int(x) for x in ensemble[1:].replace("i", " ").replace("p", " ").split()]
     attrs.update({
-        "Conventions": "CF-1.4",
+        "Conventions": CF_CONVENTIONS,  # the CF version the files follow (CF §2.6.1), not the one CMIP5 used
         "project_id": "DEMO",
         "model_id": cmip6["source_id"],
         "institute_id": cmip6["institution_id"],

@@ -1,5 +1,6 @@
 """Every kind of NetCDF file sensemble writes passes the IOOS compliance checker's `cf:1.11` suite with no error and
-no warning: the demo archive's files, `sensitivity.nc`, each group of `series/*.nc`, `pathways.nc`, `emulator.nc`.
+no warning: the demo archive's files (CMIP6 and CMIP5 layouts), `sensitivity.nc`, each group of `series/*.nc`,
+`pathways.nc`, `emulator.nc`.
 
 Source of every check here: the IOOS compliance checker (pip `compliance-checker`, suite `cf:1.11`, run through its
 Python API; it needs no network: the CF standard name table ships inside the package). Its "errors" are results of
@@ -24,6 +25,7 @@ import netCDF4
 import pytest
 from compliance_checker.runner import CheckSuite
 
+from sensemble import demo as demo_ensemble
 from sensemble.contract.cf import CONVENTIONS
 from tests.cli.test_run import BATCH_TOML, run_cli, shared_batch
 
@@ -77,6 +79,15 @@ def flatten_group(path: Path, group: str, dest: Path) -> Path:
     return dest
 
 
+def one_file_per_variable(archive: Path) -> list[Path]:
+    """One demo file of each variable: the files of a variable differ only in values, dates and ids."""
+    by_variable = {}
+    for path in sorted(archive.rglob("*.nc")):
+        by_variable.setdefault(path.name.split("_")[0], path)
+    assert set(by_variable) == {"tas", "rsdt", "rsut", "rlut", "rsutcs", "rlutcs", "areacella"}
+    return list(by_variable.values())
+
+
 @pytest.fixture(scope="module")
 def batch(tmp_path_factory):
     batch = shared_batch(tmp_path_factory)
@@ -102,13 +113,15 @@ def clear_sky(batch, tmp_path_factory) -> Path:
 
 
 def test_demo_archive_files_are_cf_clean(checker, batch):
-    archive = batch.root / "archive"
-    files = sorted(archive.rglob("*.nc"))
-    by_variable = {}
-    for path in files:
-        by_variable.setdefault(path.name.split("_")[0], path)
-    assert set(by_variable) == {"tas", "rsdt", "rsut", "rlut", "rsutcs", "rlutcs", "areacella"}
-    for path in by_variable.values():  # one file of each variable: they differ only in values and dates
+    for path in one_file_per_variable(batch.root / "archive"):
+        assert_cf_clean(checker, path)
+
+
+def test_cmip5_demo_files_are_cf_clean(checker, tmp_path):
+    # a mixed archive writes its second model the CMIP5 way (directories, names, attributes)
+    demo_ensemble.generate(tmp_path, n_models=2, grid=(4, 8), mixed=True,
+                           years={"control": 40, "abrupt": 30, "onepct": 30, "historical": 10, "scenario": 10})
+    for path in one_file_per_variable(tmp_path / "archive" / "output1"):
         assert_cf_clean(checker, path)
 
 

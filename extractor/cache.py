@@ -9,7 +9,6 @@ from __future__ import annotations
 import dataclasses
 import hashlib
 import json
-import os
 from pathlib import Path
 
 import xarray as xr
@@ -18,6 +17,7 @@ from sensemble import __version__
 from sensemble.contract.table import ALL_COLUMNS
 
 from .settings import ExtractionSettings
+from .stores import LocationStat, stat_location
 from .units import Unit
 
 
@@ -26,19 +26,21 @@ def settings_record(settings: ExtractionSettings) -> dict:
     return {k: v for k, v in dataclasses.asdict(settings).items() if k != "extra"}
 
 
-def file_stats(units: list[Unit]) -> dict[Path, os.stat_result]:
-    """Size and modification time of every input file, read once per batch (a control serves several members)."""
-    return {path: os.stat(path) for unit in units for run in unit.runs() for path in run.all_files()}
+def file_stats(units: list[Unit]) -> dict[Path, LocationStat]:
+    """Size and modification time of every input file or store, read once per batch (a control serves several
+    members); a Zarr store counts all its files (`extractor.stores.stat_location`)."""
+    paths = dict.fromkeys(path for unit in units for run in unit.runs() for path in run.all_files())
+    return {path: stat_location(path) for path in paths}
 
 
-def fingerprint(unit: Unit, settings: ExtractionSettings, stats: dict[Path, os.stat_result]) -> str:
+def fingerprint(unit: Unit, settings: ExtractionSettings, stats: dict[Path, LocationStat]) -> str:
     """Hash of everything a unit's results depend on: settings, software version, input files (size, mtime)."""
     h = hashlib.sha256()
     h.update(json.dumps(settings_record(settings), sort_keys=True, default=str).encode())
     h.update(__version__.encode())
     h.update(",".join(ALL_COLUMNS).encode())  # a cached row must have today's columns
     for run in unit.runs():
-        for path in sorted(run.all_files()):
+        for path in sorted(run.all_files(), key=str):
             st = stats[path]
             h.update(f"{run.experiment_id}|{path}|{st.st_size}|{st.st_mtime_ns}\n".encode())
     return h.hexdigest()

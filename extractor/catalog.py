@@ -18,12 +18,15 @@ files themselves agree with their names is checked when they are opened (`extrac
 """
 from __future__ import annotations
 
+import dataclasses
+import os
 import re
 from collections import defaultdict
 from dataclasses import dataclass, field
 from pathlib import Path
 
 from .settings import ExtractionSettings
+from .stores import ZARR_MARKERS
 
 AREA_VARIABLE = "areacella"
 FIXED_TABLE = "fx"
@@ -50,6 +53,7 @@ class FileFacets:
     time_range: str | None
     version: str | None
     mip_era: str = CMIP6
+    origin: str = "netcdf"  # netcdf, zarr, or "esm catalogue <path>"
 
     @property
     def start(self) -> str:
@@ -171,6 +175,61 @@ def parse_file_name(path: Path) -> FileFacets | None:
     )
 
 
+def _folder_facets(root: Path, problems: list[str]):
+    """Facets of every NetCDF file and Zarr store under ``root`` (one walk; a store's insides are not entered)."""
+    for folder, subfolders, names in os.walk(root):
+        subfolders.sort()
+        here = Path(folder)
+        if here != root and any(marker in names for marker in ZARR_MARKERS):
+            subfolders.clear()
+            facets = parse_store_path(here)
+            if facets is None:
+                problems.append(f"store {here}: neither its name (<variable>_<table>_<source>_<experiment>_<member>_"
+                                "<grid>.zarr) nor its folders (<source>/<experiment>/<member>/<table>/<variable>/"
+                                "<grid>/<version>) give the dataset's facets — store skipped; file it in the CMIP "
+                                "directory layout")
+            else:
+                yield facets
+            continue
+        for name in sorted(names):
+            if not name.endswith(".nc"):
+                continue
+            path = here / name
+            facets = parse_file_name(path)
+            if facets is None:
+                problems.append(
+                    f"file {path}: name does not follow "
+                    "<variable>_<table>_<source>_<experiment>_<member>_<grid>[_<start>-<end>].nc (CMIP6) or "
+                    "<variable>_<table>_<model>_<experiment>_<ensemble>[_<start>-<end>].nc (CMIP5) — file skipped, "
+                    "rename it"
+                )
+                continue
+            yield facets
+
+
+def parse_store_path(path) -> FileFacets | None:
+    """Facets of a Zarr store (one CMIP6 dataset) from its name or, as cloud collections file them, its folders.
+
+    ``…/<source_id>/<experiment_id>/<member_id>/<table_id>/<variable_id>/<grid_label>/<version>/`` (the version
+    folder is the store; without a version the grid folder is) or a store named like a file,
+    ``<variable>_<table>_<source>_<experiment>_<member>_<grid>.zarr``. Works on local paths and URLs alike.
+    """
+    text = str(path).rstrip("/")
+    parts = text.split("/")
+    if parts[-1].endswith(".zarr"):
+        named = parse_file_name(Path(parts[-1][: -len(".zarr")] + ".nc"))
+        if named is not None:
+            return dataclasses.replace(named, path=path, version=None, origin="zarr")
+    version = parts[-1] if _VERSION.match(parts[-1]) else None
+    facets = parts[-7:-1] if version else parts[-6:]
+    if len(facets) != 6 or not all(facets):
+        return None
+    source_id, experiment_id, member_id, table_id, variable_id, grid_label = facets
+    return FileFacets(path=path, variable_id=variable_id, table_id=table_id, source_id=source_id,
+                      experiment_id=experiment_id, member_id=member_id, grid_label=grid_label, time_range=None,
+                      version=version, mip_era=CMIP6, origin="zarr")
+
+
 def _drs_version(path: Path) -> str | None:
     """The version directory (``v…``) holding the file, else None (flat archive).
 
@@ -201,7 +260,8 @@ def scan(root: str | Path, settings: ExtractionSettings | None = None) -> Catalo
     Parameters
     ----------
     root : path
-        Top of the archive (DRS tree or flat folder; ``*.nc`` files are found at any depth).
+        Top of the archive (DRS tree or flat folder; ``*.nc`` files and Zarr stores are found at any
+        depth), or an ESM catalogue's JSON file (`extractor.esm_catalogue`) whose rows name the datasets.
     settings : ExtractionSettings, optional
         Which variables to take, which are required, which models to include or exclude.
 
@@ -226,17 +286,18 @@ def scan(root: str | Path, settings: ExtractionSettings | None = None) -> Catalo
     # (model, member, experiment, variable, grid) → version → files
     by_series: dict[tuple, dict[str | None, list[FileFacets]]] = defaultdict(lambda: defaultdict(list))
     areas: list[FileFacets] = []
-    for path in sorted(root.rglob("*.nc")):
-        if not path.is_file():
-            continue
-        facets = parse_file_name(path)
-        if facets is None:
-            catalog.problems.append(
-                f"file {path}: name does not follow "
-                "<variable>_<table>_<source>_<experiment>_<member>_<grid>[_<start>-<end>].nc (CMIP6) or "
-                "<variable>_<table>_<model>_<experiment>_<ensemble>[_<start>-<end>].nc (CMIP5) — file skipped, rename it"
-            )
-            continue
+    if root.is_file() and root.suffix == ".json":
+        from .esm_catalogue import catalogue_facets  # the catalogue's rows name the datasets
+
+        try:
+            found = catalogue_facets(root, catalog.problems)
+        except ValueError as err:  # the catalogue itself is unreadable: nothing in it can be extracted
+            catalog.problems.append(str(err))
+            return catalog
+    else:
+        found = _folder_facets(root, catalog.problems)
+    for facets in found:
+        path = facets.path
         if include and facets.source_id not in include:
             continue
         if facets.source_id in exclude:
@@ -282,7 +343,7 @@ def scan(root: str | Path, settings: ExtractionSettings | None = None) -> Catalo
             )
         chosen = grids[grid]
         files = {
-            v: [f.path for f in sorted(chosen[v][1], key=lambda f: (_start_key(f.start), f.path.name))]
+            v: [f.path for f in sorted(chosen[v][1], key=lambda f: (_start_key(f.start), str(f.path)))]
             for v in settings.variables
             if v in chosen
         }
@@ -295,6 +356,7 @@ def scan(root: str | Path, settings: ExtractionSettings | None = None) -> Catalo
             version=max(versions, key=_version_key) if versions else None,
             grid_label=grid,
             mip_era=era,
+            origin=next(f.origin for v in chosen for f in chosen[v][1]),
         )
         for variable in settings.required_variables:
             if variable not in files:

@@ -14,6 +14,7 @@ from .catalog import Catalog, RunFiles, parse_file_name
 from .errors import ArchiveError
 from .outcome import Failure
 from .settings import ExtractionSettings
+from .stores import open_dataset
 
 
 def message(err: BaseException) -> str:
@@ -63,7 +64,7 @@ def read_failure(run: RunFiles, err: BaseException) -> ArchiveError:
     for variable, paths in run.files.items():
         for path in paths:
             try:
-                with xr.open_dataset(path, engine="netcdf4", decode_times=False) as ds:
+                with open_dataset(path, decode_times=False) as ds:
                     ds[variable].load()
             except Exception as file_err:  # noqa: BLE001 — this is the file to name
                 return ArchiveError(f"values of {variable} cannot be read ({type(file_err).__name__}: "
@@ -106,8 +107,11 @@ def empty_steps(ds: xr.Dataset, run: RunFiles) -> ArchiveError | None:
 
 def nothing_to_extract(archive, catalog: Catalog, settings: ExtractionSettings) -> Failure:
     """The one failure of a batch that found no run to extract, saying where to look."""
-    if not Path(archive).is_dir():
+    if not Path(archive).is_dir() and not (Path(archive).suffix == ".json" and Path(archive).is_file()):
         why, hint = "is not a folder", "give the folder that holds the archive"
+    elif not catalog.runs and Path(archive).suffix == ".json":
+        why = "names no usable dataset" + (f" ({'; '.join(catalog.problems[:3])})" if catalog.problems else "")
+        hint = "check the catalogue's columns and locations"
     elif not catalog.runs:
         skipped = f" ({len(catalog.problems)} file(s) skipped, see the archive problems)" if catalog.problems else ""
         models = f" of the models {', '.join(settings.include_models)}" if settings.include_models else ""

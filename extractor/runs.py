@@ -18,6 +18,7 @@ from .catalog import RunFiles
 from .errors import ArchiveError
 from .means import EARTH_RADIUS_M, MIN_SPHERE_FRACTION, area_weights, find_lat_lon, global_mean, sphere_fraction
 from .settings import ExtractionSettings
+from .stores import name_of, open_dataset
 
 #: time chunk of the lazy arrays: ten years of monthly fields
 DEFAULT_CHUNKS = None  # sized per file: whole years, about CHUNK_BYTES of data per chunk
@@ -86,7 +87,7 @@ def open_run(
     flags: list[str] = list(run.flags)
     missing = [v for v in required if v not in run.files]
     if missing or not run.files:
-        folder = next((paths[0].parent for paths in run.files.values() if paths), None)
+        folder = next((Path(str(paths[0])).parent for paths in run.files.values() if paths), None)
         raise _error(
             run, folder, f"no files of required variable(s) {', '.join(missing) or 'any'}",
             "add the missing variables to the archive or leave this run out",
@@ -113,10 +114,10 @@ def open_run(
                                            else (calendar[1], path, file_calendar))
                     raise _error(
                         run, lacking, f"time has no calendar attribute (read as CF's default 'standard') but "
-                        f"{other.name} uses {cal!r}", f"add calendar = {cal!r} to the time variable of this file",
+                        f"{name_of(other)} uses {cal!r}", f"add calendar = {cal!r} to the time variable of this file",
                     )
                 raise _error(
-                    run, path, f"calendar {file_calendar!r} differs from {calendar[0]!r} in {calendar[1].name}",
+                    run, path, f"calendar {file_calendar!r} differs from {calendar[0]!r} in {name_of(calendar[1])}",
                     "all files of a run must use one calendar",
                 )
             _collect_identity(ds, path, run, mismatches)
@@ -237,11 +238,11 @@ def _open_file(path: Path, variable: str, run: RunFiles, chunks: dict | None) ->
     """One file, lazily, with checks on the variable, its units and the calendar."""
     try:
         if chunks is None:
-            raw = xr.open_dataset(path, engine="netcdf4", decode_times=False)
+            raw = open_dataset(path, decode_times=False)
             if variable in raw.data_vars and "time" in raw[variable].dims:
                 raw[variable] = raw[variable].chunk(_time_chunks(raw, variable))
         else:
-            raw = xr.open_dataset(path, engine="netcdf4", decode_times=False, chunks=chunks)
+            raw = open_dataset(path, decode_times=False, chunks=chunks)
     except Exception as err:  # netCDF4 raises OSError, xarray ValueError; both mean unreadable
         text = str(err).replace(f": {str(path)!r}", "").replace(str(path), "the file")
         raise _error(run, path, f"cannot be read ({type(err).__name__}: {text})",
@@ -329,11 +330,11 @@ def _check_joins(opened: list, run: RunFiles) -> None:
         step = after[0] - before[-1]
         if step <= 0:
             raise _error(
-                run, path_b, f"overlaps {path_a.name} by {1 - step} month(s)", "remove the duplicate or overlapping file"
+                run, path_b, f"overlaps {name_of(path_a)} by {1 - step} month(s)", "remove the duplicate or overlapping file"
             )
         if step > 1:
             raise _error(
-                run, path_b, f"gap of {step - 1} month(s) after {path_a.name}", "supply the missing file"
+                run, path_b, f"gap of {step - 1} month(s) after {name_of(path_a)}", "supply the missing file"
             )
 
 
@@ -352,7 +353,7 @@ def _check_same_grid(items: list[tuple[xr.DataArray, Path]], run: RunFiles) -> N
     reference = _grid_of(items[0][0])
     for da, path in items[1:]:
         if not _same_grid(reference, _grid_of(da)):
-            raise _error(run, path, f"grid differs from {items[0][1].name}", "all files of a variable need one grid")
+            raise _error(run, path, f"grid differs from {name_of(items[0][1])}", "all files of a variable need one grid")
 
 
 def _check_grids_between_variables(series: dict[str, xr.DataArray], run: RunFiles, reference: str) -> None:
@@ -385,7 +386,7 @@ def open_area(run: RunFiles) -> xr.DataArray | None:
     if path is None:
         return None
     try:
-        with xr.open_dataset(path, engine="netcdf4") as area_file:
+        with open_dataset(path) as area_file:
             if "areacella" not in area_file.data_vars:
                 raise _error(run, path, "has no variable 'areacella'", "check the file's contents against its name")
             return area_file["areacella"].load()
@@ -419,7 +420,7 @@ def _collect_identity(ds: xr.Dataset, path: Path, run: RunFiles, mismatches: lis
     for attr, value in found.items():
         expected = getattr(run, _IDENTITY.get(attr, "member"))
         if value != expected:
-            mismatches.append(f"{Path(path).name}: {attr}={value!r} (path: {expected!r})")
+            mismatches.append(f"{name_of(path)}: {attr}={value!r} (path: {expected!r})")
 
 
 def _run_attributes(run: RunFiles, mismatches: list[str], template: xr.Dataset, flags: list[str]) -> dict:

@@ -119,6 +119,19 @@ def ecs_intervals(fit: GregoryFit, late: GregoryFit, dT, dN, settings: Extractio
     return values
 
 
+def _short_run_hint(abrupt: xr.Dataset, settings: ExtractionSettings, keys: tuple[str, ...]) -> str:
+    """What to do about a run shorter than a fit window: shorten the window only when the run is whole.
+
+    A run that lost years to incomplete data (months missing at an end) is not short: fitting it over a
+    shorter window would give a number over other years than the other models' — so say what is missing.
+    """
+    dropped = str(abrupt.attrs.get("partial_years_dropped", "")).replace(";", ", ")
+    if dropped:
+        return (f"the run's files lack months of the years {dropped} (dropped as incomplete): supply the missing "
+                "months; shortening the fit window instead would fit other years than the other models'")
+    return window_hint(settings, keys)
+
+
 def fit_row(unit: Unit, abrupt: xr.Dataset | None, tcr_value: float | None, control_annual: xr.Dataset,
             residuals: xr.Dataset, settings: ExtractionSettings, flags: list[str]) -> SensitivityRow:
     """The Gregory fits of the abrupt anomalies (if any), the TCR and the quality flags as one table row."""
@@ -141,7 +154,7 @@ def fit_row(unit: Unit, abrupt: xr.Dataset | None, tcr_value: float | None, cont
                                                   else ())
             values.update(ecs_intervals(fit, seg.late, dT, dN, settings, flags))
         except FitWindowError as err:
-            raise run_error(err, unit.abrupt, abrupt, window_hint(settings, keys)) from None
+            raise run_error(err, unit.abrupt, abrupt, _short_run_hint(abrupt, settings, keys)) from None
         values.update(erf_4x=fit.erf, erf_4x_se=fit.erf_se, feedback=fit.feedback, feedback_se=fit.feedback_se,
                       ecs_eff=fit.ecs_eff, feedback_early=seg.feedback_early,
                       feedback_late=seg.feedback_late, feedback_change=seg.feedback_change, ecs_late=seg.ecs_late,

@@ -382,9 +382,11 @@ def cmd_demo(args, console: Console) -> int:
 def cmd_extract(args, console: Console) -> int:
     from .config import load_config, merge_overrides
 
-    if not Path(args.archive).is_dir():
-        what = "is not a folder" if Path(args.archive).exists() else "no such folder"
-        raise UsageError(f"archive {args.archive}: {what} — give the folder that holds the model directories")
+    archive = Path(args.archive)
+    if not (archive.is_dir() or (archive.is_file() and archive.suffix == ".json")):
+        what = "is not a folder or a catalogue (.json)" if archive.exists() else "no such folder"
+        raise UsageError(f"archive {args.archive}: {what} — give the folder that holds the model directories "
+                         "(NetCDF files or Zarr stores) or an ESM catalogue's .json file")
     config = load_config(args.config, check_paths=False) if args.config else _default_config()
     config = merge_overrides(config, archive=args.archive, out=args.out, workers=args.workers,
                              force=args.force or None, quiet=args.quiet or None)

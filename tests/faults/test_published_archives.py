@@ -9,6 +9,7 @@ subset. Where the data are unchanged the extraction must give the clean referenc
 from __future__ import annotations
 
 import csv
+import json
 from pathlib import Path
 
 import netCDF4
@@ -226,3 +227,73 @@ def test_regional_subset_is_refused_naming_file_and_fraction(clean, broken_copy,
     line = next(line for line in report.splitlines() if "of the sphere" in line and "piControl" in line)
     assert f"file {named}" in line and "7.3% of the sphere" in line and "regional subset" in line, line
     assert " — give the run's global fields" in line
+
+
+# 4 ------------------------------------------------------------------------------- Zarr stores, catalogues
+
+
+def to_zarr(root: Path, dest: Path, model=TARGET) -> list[dict]:
+    """Every dataset of ``model`` as one Zarr store (v2, consolidated metadata, as cloud CMIP6 collections), filed
+    ``dest/<source>/<experiment>/<member>/<table>/<variable>/<grid>/<version>/``; the NetCDF files are removed.
+    Returns the catalogue rows of the stores."""
+    rows = []
+    for path in target_files(root, model):
+        variable, table, source, experiment, member, grid, *_ = path.stem.split("_")
+        store = dest / source / experiment / member / table / variable / grid / "v20260101"
+        with xr.open_dataset(path, decode_times=False, mask_and_scale=False) as ds:
+            ds.load().to_zarr(store, mode="w", zarr_format=2, consolidated=True)
+        path.unlink()
+        rows.append({"activity_id": "DEMO", "source_id": source, "experiment_id": experiment, "member_id": member,
+                     "table_id": table, "variable_id": variable, "grid_label": grid, "version": "20260101",
+                     "path": store})
+    return rows
+
+
+def netcdf_rows(root: Path) -> list[dict]:
+    rows = []
+    for path in sorted(root.rglob("*.nc")):
+        variable, table, source, experiment, member, grid, *_ = path.stem.split("_")
+        rows.append({"activity_id": "DEMO", "source_id": source, "experiment_id": experiment, "member_id": member,
+                     "table_id": table, "variable_id": variable, "grid_label": grid, "version": "20260101",
+                     "path": path})
+    return rows
+
+
+def test_zarr_stores_in_the_archive_tree_give_the_same_numbers(clean, broken_copy, tmp_path):
+    # issue 11 point 4: one store per dataset beside the other model's NetCDF files; same values, so the clean
+    # numbers exactly (common practice, no source); the table says where each model came from
+    to_zarr(broken_copy, broken_copy / "zarr")
+    assert not target_files(broken_copy)
+    status, stderr, rows, _ = extract_cli(broken_copy, tmp_path)
+    assert status == 0, stderr
+    assert_same_numbers(rows[TARGET], rows_by_model(clean)[TARGET])
+    assert rows[TARGET]["flags"] == rows_by_model(clean)[TARGET]["flags"]
+    assert {model: row["origin"] for model, row in rows.items()} == {TARGET: "zarr", "BIRCH-2": "netcdf"}
+
+
+def test_esm_catalogue_of_zarr_urls_and_netcdf_files_gives_the_same_numbers(clean, broken_copy, tmp_path):
+    # issue 11 point 4: an ESM catalogue (JSON + CSV, written here) whose rows name the datasets — the target's as
+    # fsspec URLs of Zarr stores (file://, so no network), the other model's as NetCDF paths relative to the CSV
+    stores = to_zarr(broken_copy, tmp_path / "bucket")
+    for row in stores:
+        row["path"] = Path(row["path"]).as_uri()
+    files = netcdf_rows(broken_copy)
+    for row in files:
+        row["path"] = Path(row["path"]).relative_to(broken_copy).as_posix()
+    with open(broken_copy / "datasets.csv", "w", newline="") as fh:
+        writer = csv.DictWriter(fh, fieldnames=list(stores[0]))
+        writer.writeheader()
+        writer.writerows(stores + files + [dict(files[0], path="")])  # a row without a location is reported
+    spec = {"esmcat_version": "0.1.0", "id": "published-test", "description": "invented test datasets",
+            "catalog_file": "datasets.csv", "attributes": [{"column_name": "source_id"}],
+            "assets": {"column_name": "path"},
+            "aggregation_control": {"variable_column_name": "variable_id", "groupby_attrs": ["source_id"],
+                                    "aggregations": []}}
+    catalogue = broken_copy / "datasets.json"
+    catalogue.write_text(json.dumps(spec))
+    status, stderr, rows, report = extract_cli(catalogue, tmp_path)
+    assert status == 0, stderr
+    for model, reference in rows_by_model(clean).items():
+        assert_same_numbers(rows[model], reference)
+        assert rows[model]["origin"] == f"esm catalogue {catalogue}"
+    assert f"catalogue {catalogue}: row {len(stores) + len(files) + 2}: no path" in report

@@ -207,8 +207,8 @@ def _check_compute(config: BatchConfig, source: str) -> None:
 
 def _check_paths(config: BatchConfig, source: str) -> None:
     root = config.archive.root
-    if root is not None and not root.is_dir():
-        what = "is not a folder" if root.exists() else "does not exist"
+    if root is not None and not (root.is_dir() or (root.is_file() and root.suffix == ".json")):
+        what = "is not a folder or an ESM catalogue (.json)" if root.exists() else "does not exist"
         raise ConfigError(f"{source}: [archive] root {root} {what}")
     for name in field_names(EmulatorSettings):
         value = getattr(config.emulator, name)

@@ -297,3 +297,15 @@ def test_esm_catalogue_of_zarr_urls_and_netcdf_files_gives_the_same_numbers(clea
         assert_same_numbers(rows[model], reference)
         assert rows[model]["origin"] == f"esm catalogue {catalogue}"
     assert f"catalogue {catalogue}: row {len(stores) + len(files) + 2}: no path" in report
+
+
+def test_run_lacking_months_is_not_told_to_shorten_the_fit_window(clean, broken_copy, tmp_path):
+    # issue 11: "set fit_years" for a run that only lacks months would fit other years than the other models'
+    # (a wrong number); the hint names the incomplete year instead. The last six months are cut from every file.
+    for variable in ("tas", "rsdt", "rsut", "rlut"):
+        rewrite(file_of(broken_copy, variable=variable), [range(0, 40 * 12 - 6)])
+    status, _, rows, report = extract_cli(broken_copy, tmp_path)
+    assert status == 1 and TARGET not in rows
+    line = next(line for line in report.splitlines() if f"**{TARGET}" in line)
+    assert "lack months of the years 1889" in line and "supply the missing months" in line, line
+    assert "set [extraction] fit_years" not in report

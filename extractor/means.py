@@ -219,12 +219,18 @@ def global_mean(da: xr.DataArray, weights: xr.DataArray) -> xr.DataArray:
         # The grid dims whole in every chunk, so each chunk gives its own time steps' means:
         # one task per chunk, no combine step (a chunk → aggregate reduction in one pass).
         data = data.rechunk({values.get_axis_num(d): -1 for d in dims})
-        out = data.map_blocks(_weighted_block_mean, w, len(dims), drop_axis=list(range(len(other), da.ndim)),
+        out = data.map_blocks(weighted_block_mean, w, len(dims), drop_axis=list(range(len(other), da.ndim)),
                               dtype=np.float64)
     else:
-        out = _weighted_block_mean(np.asarray(data), w, len(dims))
-    mean = xr.DataArray(out, dims=other, coords={c: v for c, v in values.coords.items()
-                                                   if set(v.dims) <= set(other)}, name=da.name)
+        out = weighted_block_mean(np.asarray(data), w, len(dims))
+    return labelled_mean(out, values, other)
+
+
+def labelled_mean(data, da: xr.DataArray, dims) -> xr.DataArray:
+    """The global means `data` (over `dims`, what is left of `da`) labelled as `da` is: its coordinates on those
+    dims, its attributes, and ``"area: mean"`` appended to ``cell_methods``."""
+    mean = xr.DataArray(data, dims=tuple(dims), coords={c: v for c, v in da.coords.items()
+                                                         if set(v.dims) <= set(dims)}, name=da.name)
     mean.attrs = dict(da.attrs)
     methods = str(da.attrs.get("cell_methods", "")).strip()
     mean.attrs["cell_methods"] = f"{methods} area: mean".strip()
@@ -236,7 +242,7 @@ def global_mean(da: xr.DataArray, weights: xr.DataArray) -> xr.DataArray:
 _STEPS_PER_PASS = 16
 
 
-def _weighted_block_mean(block: np.ndarray, weights: np.ndarray, n_grid_dims: int) -> np.ndarray:
+def weighted_block_mean(block: np.ndarray, weights: np.ndarray, n_grid_dims: int) -> np.ndarray:
     """sum(w·x) / sum(w) over the trailing grid axes, cells with missing x left out of both; float64.
 
     The chunk is reduced a few time steps at a time, each cast to float64 once; a pass whose cells are

@@ -16,7 +16,9 @@ import xarray as xr
 
 from .catalog import RunFiles
 from .errors import ArchiveError
-from .means import EARTH_RADIUS_M, MIN_SPHERE_FRACTION, area_weights, find_lat_lon, global_mean, sphere_fraction
+from .filemeans import FileSource, lazy_file_means
+from .means import (EARTH_RADIUS_M, MIN_SPHERE_FRACTION, area_weights, find_lat_lon, global_mean, labelled_mean,
+                    sphere_fraction)
 from .settings import ExtractionSettings
 from .stores import name_of, open_dataset
 
@@ -43,6 +45,8 @@ CALENDARS = {
 }
 
 TEMPERATURE = {"tas"}
+#: CF/UDUNITS: K = degC + 273.15
+CELSIUS_TO_KELVIN = 273.15
 KELVIN = {"K", "kelvin", "Kelvin", "degK", "deg_K", "degrees_K"}
 CELSIUS = {"degC", "deg_C", "Celsius", "celsius", "degree_Celsius", "degrees_Celsius", "degree_C", "degrees_C", "°C"}
 # spellings of W m-2 once "**"/"^" are dropped and separators reduced to one space
@@ -83,6 +87,12 @@ def open_run(
         not monthly, gaps, overlaps, duplicated or non-monotonic times, grids that differ
         between variables, files of one run disagreeing on who they are.
     """
+    return _open_run(run, chunks, required)[0]
+
+
+def _open_run(run: RunFiles, chunks: dict | None, required: tuple[str, ...]) -> tuple[xr.Dataset, dict]:
+    """`open_run`, and where each variable's time steps lie: variable → (its files in time order as
+    (path, steps, dims, offset), the positions kept on the run's time axis or None for all)."""
     chunks = None if chunks is None else dict(chunks)
     flags: list[str] = list(run.flags)
     missing = [v for v in required if v not in run.files]
@@ -98,11 +108,12 @@ def open_run(
     first: dict[str, xr.Dataset] = {}
     bounds: dict[str, xr.DataArray] = {}
     mismatches: list[str] = []
+    layout: dict[str, tuple[list, np.ndarray | None]] = {}
     calendar: tuple[str, Path] | None = None
     for variable, paths in run.files.items():
         opened = []
         for path in paths:
-            ds, file_calendar, defaulted = _open_file(path, variable, run, chunks)
+            ds, file_calendar, defaulted, offset = _open_file(path, variable, run, chunks)
             if defaulted and "calendar_defaulted" not in flags:
                 flags.append("calendar_defaulted")
             if calendar is None:
@@ -121,14 +132,16 @@ def open_run(
                     "all files of a run must use one calendar",
                 )
             _collect_identity(ds, path, run, mismatches)
-            opened.append((ds, _month_index(ds, path, run), path))
+            opened.append((ds, _month_index(ds, path, run), path, offset))
         opened.sort(key=lambda item: item[1][0])
         _check_joins(opened, run)
-        _check_same_grid([(ds[variable], path) for ds, _, path in opened], run)
+        _check_same_grid([(ds[variable], path) for ds, _, path, _ in opened], run)
         series[variable] = xr.concat(
-            [ds[variable] for ds, _, _ in opened], dim="time", coords="minimal", compat="override", join="override"
+            [ds[variable] for ds, _, _, _ in opened], dim="time", coords="minimal", compat="override", join="override"
         )
-        months[variable] = np.concatenate([m for _, m, _ in opened])
+        layout[variable] = ([(path, ds.sizes["time"], ds[variable].dims, offset) for ds, _, path, offset in opened],
+                            None)
+        months[variable] = np.concatenate([m for _, m, _, _ in opened])
         first[variable] = opened[0][0]
         bnds = _time_bounds(opened)
         if bnds is not None:
@@ -154,6 +167,8 @@ def open_run(
         keep = np.flatnonzero(np.isin(months[variable], common))
         # all steps kept (the usual case): no indexing layer, which would copy every chunk
         part = da if keep.size == da.sizes["time"] else da.isel(time=keep)
+        if part is not da:
+            layout[variable] = (layout[variable][0], keep)
         data_vars[variable] = part.assign_coords(time=time.values)
     ds = xr.Dataset(data_vars)
     ds["time"].attrs = {k: v for k, v in time.attrs.items() if k != "bounds"}
@@ -174,7 +189,7 @@ def open_run(
     attrs["files"] = ";".join(str(p) for p in run.all_files())
     attrs["flags"] = ";".join(dict.fromkeys(flags))
     ds.attrs = attrs
-    return ds
+    return ds, layout
 
 
 def global_mean_series(
@@ -192,7 +207,7 @@ def global_mean_series(
         Dimension ``time``; the run's variables (units kept, ``cell_methods`` with ``area: mean``),
         ``time_bnds`` when present; attributes of `open_run` plus ``weights``.
     """
-    ds = open_run(run, chunks=chunks, required=required)
+    ds, layout = _open_run(run, chunks, required)
     try:
         weights, flag = area_weights(ds, open_area(run))
     except ArchiveError as err:
@@ -206,7 +221,11 @@ def global_mean_series(
             f"at least {MIN_SPHERE_FRACTION:.0%} needed): a regional subset, not a global grid",
             "give the run's global fields (a global mean needs the whole sphere), or leave this run out",
         )
-    means = {v: global_mean(ds[v], weights) for v in run.files}
+    # one task per file, read and reduced together (`extractor.filemeans`), unless chunks were asked for
+    means = {}
+    for v in run.files:
+        mean = _file_task_mean(ds[v], weights, *layout[v]) if chunks is None else None
+        means[v] = global_mean(ds[v], weights) if mean is None else mean
     out = xr.Dataset(means)
     if "time_bnds" in ds:
         out["time_bnds"] = ds["time_bnds"]
@@ -217,6 +236,22 @@ def global_mean_series(
         flags = [f for f in out.attrs["flags"].split(";") if f]
         out.attrs["flags"] = ";".join(dict.fromkeys(flags + [flag]))
     return out
+
+
+def _file_task_mean(da: xr.DataArray, weights: xr.DataArray, files: list, keep: np.ndarray | None):
+    """Lazy global mean of `da` with one read-and-reduce task per file, or None where a file's variable has
+    dims other than time and the grid (the general dask reduction, `global_mean`, handles those)."""
+    grid = tuple(weights.dims)
+    sources = []
+    for path, steps, dims, offset in files:
+        if set(dims) != {"time", *grid} or len(dims) != len(grid) + 1:
+            return None
+        axes = (dims.index("time"), *(dims.index(d) for d in grid))
+        sources.append(FileSource(str(path), str(da.name), int(steps), axes, offset))
+    data = lazy_file_means(sources, np.asarray(weights.values, dtype=np.float64), f"global-mean-{da.name}")
+    if keep is not None:
+        data = data[keep]
+    return labelled_mean(data, da, ("time",))
 
 
 # ---------------------------------------------------------------------------- files
@@ -234,8 +269,10 @@ def _time_chunks(raw: xr.Dataset, variable: str) -> dict:
     return {"time": int(min(years * 12, max(da.sizes.get("time", 1), 1)))}
 
 
-def _open_file(path: Path, variable: str, run: RunFiles, chunks: dict | None) -> tuple[xr.Dataset, str, bool]:
-    """One file, lazily, with checks on the variable, its units and the calendar."""
+def _open_file(path: Path, variable: str, run: RunFiles,
+               chunks: dict | None) -> tuple[xr.Dataset, str, bool, float | None]:
+    """One file, lazily, with checks on the variable, its units and the calendar; and the offset its values
+    were given to reach the run's units (None: none)."""
     try:
         if chunks is None:
             raw = open_dataset(path, decode_times=False)
@@ -274,33 +311,34 @@ def _open_file(path: Path, variable: str, run: RunFiles, chunks: dict | None) ->
         ds = xr.decode_cf(raw, decode_times=xr.coders.CFDatetimeCoder(use_cftime=True))
     except Exception as err:
         raise _error(run, path, f"time cannot be decoded ({err})", "check the time units and calendar") from None
-    ds[variable] = _checked_units(ds[variable], variable, path, run)
-    return ds, calendar, defaulted
+    ds[variable], offset = _checked_units(ds[variable], variable, path, run)
+    return ds, calendar, defaulted, offset
 
 
-def _checked_units(da: xr.DataArray, variable: str, path: Path, run: RunFiles) -> xr.DataArray:
+def _checked_units(da: xr.DataArray, variable: str, path: Path, run: RunFiles) -> tuple[xr.DataArray, float | None]:
     units = da.attrs.get("units")
     if units is None:
         raise _error(run, path, f"{variable} has no units attribute", "add CF units; units are never guessed")
     text = str(units).strip()
     if variable in TEMPERATURE:
+        offset = None
         if text in KELVIN:
             out = da
         elif text in CELSIUS:
-            # CF/UDUNITS: K = degC + 273.15
-            out = da + 273.15
+            offset = CELSIUS_TO_KELVIN
+            out = da + offset
             out.attrs = dict(da.attrs)
             out.encoding = dict(da.encoding)
         else:
             raise _error(run, path, f"{variable} units {text!r} are not a temperature (K or degC)", "fix the units attribute")
         out.attrs["units"] = "K"
-        return out.rename(da.name)
+        return out.rename(da.name), offset
     spelled = re.sub(r"[\s.·]+", " ", text.replace("**", "").replace("^", "")).strip()
     if spelled not in FLUX_UNITS:
         raise _error(run, path, f"{variable} units {text!r} are not W m-2", "give fluxes in W m-2 (fix the units attribute)")
     out = da.copy()
     out.attrs["units"] = "W m-2"
-    return out
+    return out, None
 
 
 def _month_index(ds: xr.Dataset, path: Path, run: RunFiles) -> np.ndarray:
@@ -326,7 +364,7 @@ def _month_index(ds: xr.Dataset, path: Path, run: RunFiles) -> np.ndarray:
 
 def _check_joins(opened: list, run: RunFiles) -> None:
     """Consecutive files of one variable must follow each other month by month."""
-    for (_, before, path_a), (_, after, path_b) in zip(opened, opened[1:]):
+    for (_, before, path_a, _), (_, after, path_b, _) in zip(opened, opened[1:]):
         step = after[0] - before[-1]
         if step <= 0:
             raise _error(
@@ -368,7 +406,7 @@ def _check_grids_between_variables(series: dict[str, xr.DataArray], run: RunFile
 
 def _time_bounds(opened: list) -> xr.DataArray | None:
     parts = []
-    for ds, _, _ in opened:
+    for ds, *_ in opened:
         name = ds["time"].attrs.get("bounds") or ds["time"].encoding.get("bounds")
         if not name or name not in ds.variables:
             return None

@@ -1,0 +1,129 @@
+"""Global means of one NetCDF file, read and reduced inside one task.
+
+Reading and decompressing the files is the whole cost of an extraction, so each file is one dask task
+that reads its variable in slabs of whole storage chunks and reduces every slab to area-weighted global
+means at once: what leaves the task is one float64 per time step, never a field. This is what lets a
+process pool (or a cluster) use every core at the speed of the disk: one process holds HDF5 for its own
+files (netCDF-C is not thread-safe, so threads of one process read one at a time), tasks are few and
+large, and no large array is ever passed between tasks or processes.
+
+Values are decoded as `xarray.decode_cf` decodes them on the other path (``_FillValue`` and
+``missing_value`` cells are missing; packed integers unpacked by xarray itself), so both paths give
+bit-identical means.
+"""
+from __future__ import annotations
+
+import threading
+from dataclasses import dataclass
+from pathlib import Path
+
+import dask
+import dask.array as dask_array
+import netCDF4
+import numpy as np
+
+from .means import weighted_block_mean
+
+# One lock per process around netCDF-C calls: the library is not thread-safe. Worker processes each have
+# their own, so they read in parallel; threads of one process take turns reading and reduce in parallel.
+NETCDF_LOCK = threading.Lock()
+
+#: about this many bytes of decoded values in memory per read (whole storage chunks, at least one)
+SLAB_BYTES = 64 * 2**20
+
+
+@dataclass(frozen=True)
+class FileSource:
+    """Where one file's part of a variable lies, and how its values become the run's.
+
+    ``axes`` orders the variable's dims as (time, *grid dims of the weights); ``offset`` is added to every
+    decoded value (273.15 for a temperature in degC, CF/UDUNITS), as the other path does.
+    """
+
+    path: str
+    variable: str
+    steps: int
+    axes: tuple[int, ...]
+    offset: float | None = None
+
+
+def file_global_means(source: FileSource, weights: np.ndarray) -> np.ndarray:
+    """Area-weighted global mean of every time step of one file's variable (float64, missing cells left out)."""
+    n_grid = weights.ndim
+    out = np.empty(source.steps, dtype=np.float64)
+    with NETCDF_LOCK:
+        nc = netCDF4.Dataset(source.path, "r")
+    try:
+        with NETCDF_LOCK:
+            var = nc.variables[source.variable]
+            raw = _plain_floats(var)
+            if raw:
+                var.set_auto_maskandscale(False)
+            fills = _fill_values(var) if raw else ()
+            chunking = var.chunking()
+            per_chunk = chunking[source.axes[0]] if isinstance(chunking, list) else 1
+            step_bytes = int(np.prod([var.shape[a] for a in source.axes[1:]])) * var.dtype.itemsize
+        slab = max(per_chunk, (SLAB_BYTES // max(1, step_bytes * per_chunk)) * per_chunk)
+        time_axis = source.axes[0]
+        for lo in range(0, source.steps, slab):
+            index = [slice(None)] * len(source.axes)
+            index[time_axis] = slice(lo, min(lo + slab, source.steps))
+            with NETCDF_LOCK:
+                block = var[tuple(index)] if raw else None
+            if block is None:
+                block = _decoded_by_xarray(source, tuple(index))
+            block = _as_missing(np.asarray(block), fills)
+            if source.axes != tuple(range(len(source.axes))):
+                block = block.transpose(source.axes)
+            if source.offset is not None:
+                block = block + source.offset
+            out[lo: lo + block.shape[0]] = weighted_block_mean(block, weights, n_grid)
+    finally:
+        with NETCDF_LOCK:
+            nc.close()
+    return out
+
+
+def _plain_floats(var) -> bool:
+    """Floats that decode by masking alone: no packing attributes, no unsigned flag."""
+    attrs = set(var.ncattrs())
+    return var.dtype.kind == "f" and not attrs & {"scale_factor", "add_offset", "_Unsigned"}
+
+
+def _fill_values(var) -> tuple:
+    """The values xarray's CF decoding reads as missing: ``_FillValue`` and ``missing_value``."""
+    values = []
+    for name in ("_FillValue", "missing_value"):
+        if name in var.ncattrs():
+            values.extend(np.atleast_1d(np.asarray(var.getncattr(name))).tolist())
+    return tuple(v for v in dict.fromkeys(values) if not np.isnan(v))
+
+
+def _as_missing(block: np.ndarray, fills: tuple) -> np.ndarray:
+    for fill in fills:
+        hit = block == block.dtype.type(fill)
+        if hit.any():
+            block = np.where(hit, block.dtype.type(np.nan), block)
+    return block
+
+
+def _decoded_by_xarray(source: FileSource, index: tuple) -> np.ndarray:
+    """Packed or integer values, decoded by xarray itself (the other path's decoding, to the bit)."""
+    import xarray as xr
+
+    with NETCDF_LOCK:
+        with xr.open_dataset(source.path, engine="netcdf4", decode_times=False, cache=False) as ds:
+            return np.asarray(ds[source.variable][index].values)
+
+
+def lazy_file_means(sources: list[FileSource], weights: np.ndarray, name: str) -> dask_array.Array:
+    """The time series of global means of one variable over its files: one task per file, joined along time."""
+    weights_key = dask.delayed(np.asarray(weights, dtype=np.float64), pure=True)
+    reduce_file = dask.delayed(file_global_means, pure=True)
+    parts = [
+        dask_array.from_delayed(reduce_file(source, weights_key, dask_key_name=f"{name}-{Path(source.path).name}-"
+                                            f"{dask.base.tokenize(source)}"),
+                                shape=(source.steps,), dtype=np.float64)
+        for source in sources
+    ]
+    return parts[0] if len(parts) == 1 else dask_array.concatenate(parts)

@@ -13,6 +13,8 @@ bit-identical means.
 """
 from __future__ import annotations
 
+import ctypes
+import os
 import threading
 from dataclasses import dataclass
 from pathlib import Path
@@ -30,6 +32,37 @@ NETCDF_LOCK = threading.Lock()
 
 #: about this many bytes of decoded values in memory per read (whole storage chunks, at least one)
 SLAB_BYTES = 64 * 2**20
+
+# glibc allocator thresholds for worker processes whose environment froze them (see `_allocator_for_slabs`)
+_M_TRIM_THRESHOLD, _M_MMAP_THRESHOLD = -1, -3
+MMAP_THRESHOLD_BYTES = 32 * 2**20  # glibc's own ceiling for its dynamic threshold on 64-bit systems
+TRIM_THRESHOLD_BYTES = 2 * MMAP_THRESHOLD_BYTES  # glibc's dynamic rule: twice the mmap threshold
+_allocator_checked = False
+
+
+def _allocator_for_slabs() -> None:
+    """Undo, in this process, a frozen 128 kB mmap threshold of glibc's allocator (once per process).
+
+    distributed's nanny starts every worker with ``MALLOC_TRIM_THRESHOLD_`` set, which turns off glibc's
+    dynamic mmap threshold: each decompression buffer and each float64 temporary of a few MB is then a
+    fresh mmap, zero-filled page by page and unmapped again. Measured on one 39 MB file of the scaling
+    benchmark: reduction 0.24 s in such a worker against 0.03–0.04 s in a plain process or in a worker
+    without that setting, and reading about 1.5× slower. The thresholds set here are where glibc's own
+    dynamic rule ends up for buffers of that size; memory stays bounded by the slab size. Only done where
+    the environment froze them, and only on glibc (elsewhere nothing happens).
+    """
+    global _allocator_checked
+    if _allocator_checked:
+        return
+    _allocator_checked = True
+    if "MALLOC_TRIM_THRESHOLD_" not in os.environ or "MALLOC_MMAP_THRESHOLD_" in os.environ:
+        return
+    try:
+        libc = ctypes.CDLL("libc.so.6")
+        libc.mallopt(_M_MMAP_THRESHOLD, MMAP_THRESHOLD_BYTES)
+        libc.mallopt(_M_TRIM_THRESHOLD, TRIM_THRESHOLD_BYTES)
+    except (OSError, AttributeError):  # not glibc: its own allocator, nothing frozen
+        pass
 
 
 @dataclass(frozen=True)
@@ -49,6 +82,7 @@ class FileSource:
 
 def file_global_means(source: FileSource, weights: np.ndarray) -> np.ndarray:
     """Area-weighted global mean of every time step of one file's variable (float64, missing cells left out)."""
+    _allocator_for_slabs()
     n_grid = weights.ndim
     out = np.empty(source.steps, dtype=np.float64)
     with NETCDF_LOCK:

@@ -103,7 +103,8 @@ def _extract_locked(archive, out_dir: Path, settings: ExtractionSettings, *, for
     runs = list({run.label: run for unit in todo for run in unit.runs()}.values())
     files = {p for unit in todo for r in unit.runs() for p in r.all_files()}
     log(f"reducing {len(runs)} runs ({len(files)} files) in one pass")
-    series, broken = reduce_runs(runs, settings.required_variables, progress)
+    series, broken = reduce_runs(runs, settings.required_variables, progress,
+                                 input_bytes=sum(stats[p].st_size for p in files))
     for label, ds in series.items():
         if ds.attrs.get("attribute_mismatch"):
             notes.append(f"{label}: file attributes disagree with the path, which names the run (flag "

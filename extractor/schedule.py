@@ -15,6 +15,10 @@ from .diagnose import empty_steps, read_failure
 from .errors import ArchiveError
 from .runs import global_mean_series
 
+#: dask config key under which a batch declares how many bytes of input its graph reads, so that the scheduler
+#: chosen outside can size itself (a small batch is not worth starting worker processes for)
+BATCH_BYTES_KEY = "sensemble.batch-bytes"
+
 
 def distributed_client():
     """The distributed client dask would compute on now, or None for a local scheduler."""
@@ -66,12 +70,13 @@ def reduce_run(held: _Held, run: RunFiles) -> xr.Dataset | ArchiveError | BaseEx
     return empty_steps(series, run) or series
 
 
-def reduce_runs(runs: list[RunFiles], required: tuple[str, ...],
-                progress: bool) -> tuple[dict[str, xr.Dataset], dict[str, ArchiveError]]:
+def reduce_runs(runs: list[RunFiles], required: tuple[str, ...], progress: bool,
+                input_bytes: int | None = None) -> tuple[dict[str, xr.Dataset], dict[str, ArchiveError]]:
     """Global-mean series of ``runs`` in one graph, one task per run: ``({label: series}, {label: error})``.
 
     The files are opened here, one after another (the HDF5 library must not open files in several threads
-    at once); their values are read in the graph.
+    at once); their values are read in the graph. `input_bytes` (the size of the files the graph reads) is
+    declared to the scheduler under `BATCH_BYTES_KEY`.
     """
     series, errors, tasks, opened = {}, {}, [], []
     for run in runs:
@@ -86,7 +91,9 @@ def reduce_runs(runs: list[RunFiles], required: tuple[str, ...],
             continue
         tasks.append(dask.delayed(reduce_run, pure=True)(_Held(lazy), run, dask_key_name=f"reduce-run-{len(tasks)}"))
         opened.append(run)
-    for run, value in zip(opened, compute_all(tasks, progress) if tasks else []):
+    with dask.config.set({BATCH_BYTES_KEY: input_bytes}):
+        values = compute_all(tasks, progress) if tasks else []
+    for run, value in zip(opened, values):
         if isinstance(value, xr.Dataset):
             series[run.label] = value
         elif isinstance(value, ArchiveError):

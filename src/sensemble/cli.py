@@ -244,8 +244,11 @@ def _version() -> str:
 # ------------------------------------------------------------------------------------------ stages
 
 
-def _run_extract(archive, out, config, console: Console):
-    """Extraction under the configured compute back-end; per-run table and failures reported."""
+def _run_extract(archive, out, config, console: Console, batch_dir=None):
+    """Extraction under the configured compute back-end; per-run table and failures reported.
+
+    `batch_dir` (default `out`) is the batch's output folder: its name names the cluster's worker jobs,
+    and their logs go under it."""
     from sensemble.extractor import pipeline
 
     from .compute import open_compute
@@ -253,7 +256,8 @@ def _run_extract(archive, out, config, console: Console):
     quiet = config.output.quiet
     bar = not quiet and sys.stdout.isatty()  # a redrawn bar only where it can be redrawn
     coarse = _CoarseProgress(console, terminal=not quiet and not bar)
-    with open_compute(config.compute), coarse.callback:
+    batch_dir = Path(batch_dir or out).resolve()
+    with open_compute(config.compute, batch=batch_dir.name, out_dir=batch_dir), coarse.callback:
         result = pipeline.extract(archive, out, config.extraction, force=config.output.force, progress=bar,
                                    figures=config.output.figures, log=console)
     console(f"extraction: {len(result.rows)} rows ({len(result.cached)} reused from {Path(out) / 'series'}), "
@@ -299,7 +303,7 @@ def _run_emulate(source, out, config, console: Console):
 
 def _extract_then_emulate(archive, out: Path, config, console: Console, emulate_step: str):
     """Extract into OUT/extract, then emulate into OUT/emulate; None when no model could be extracted."""
-    result = _run_extract(archive, out / "extract", config, console)
+    result = _run_extract(archive, out / "extract", config, console, batch_dir=out)
     _write_effective_config(config, out, console)
     if not result.rows:
         console.error("no model could be extracted, so nothing to emulate")

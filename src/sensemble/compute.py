@@ -1,23 +1,33 @@
-"""Where a batch's dask graph runs: local threads, a local process pool, a running scheduler,
-or a SLURM/PBS job-queue cluster started and closed by the tool.
+"""Where a batch's dask graph runs: this machine's cores (the default), local threads, a local
+distributed cluster, a running scheduler, or a SLURM/PBS job-queue cluster started and closed by the tool.
 
 `open_compute(settings)` is a context manager: inside it, `dask.compute` (and xarray's
-`.compute()`) run on the chosen workers; on exit every cluster it started is closed.
+`.compute()`) run on the chosen workers; on exit every cluster or pool it started is closed.
+
+Why the default ("auto") is a pool of processes: reading and decompressing NetCDF is the whole cost
+of an extraction, and netCDF-C/HDF5 are not thread-safe, so threads of one process read one at a time
+(about one core, whatever the machine). One process per core, each reading and reducing whole files
+(`sensemble.extractor.filemeans`), reads at the speed of the cores. A batch too small to repay the
+pool's start (under `SMALL_BATCH_BYTES` of input) runs on threads in this process instead.
 """
 from __future__ import annotations
 
 import contextlib
+import multiprocessing
 import os
+import re
 from dataclasses import dataclass, field
 from numbers import Integral
+from pathlib import Path
 from typing import Iterator
 
 import dask
 
 from sensemble.contract.constraints import Interval, MemorySize, Options, TimeLimit
+from sensemble.extractor.schedule import BATCH_BYTES_KEY
 
 #: Values of `ComputeSettings.kind`.
-KINDS = ("threads", "processes", "address", "slurm", "pbs")
+KINDS = ("auto", "threads", "processes", "address", "slurm", "pbs")
 #: Kinds served by a job-queue cluster (dask-jobqueue, the optional `cluster` extra).
 JOB_QUEUE_KINDS = ("slurm", "pbs")
 
@@ -25,6 +35,10 @@ JOB_QUEUE_KINDS = ("slurm", "pbs")
 # known once the scheduler runs, and rendering must not start one.
 SCHEDULER_PLACEHOLDER = "tcp://<scheduler-address>:8786"
 JOB_NAME = "sensemble-worker"
+#: worker job logs go here, under the batch's output folder, unless `log_directory` says otherwise
+LOG_FOLDER = "worker-logs"
+#: below this much input a batch runs on threads: a process pool's start (~1 s) would cost more than it saves
+SMALL_BATCH_BYTES = 64 * 2**20
 
 
 class ComputeError(RuntimeError):
@@ -43,7 +57,7 @@ def cores_available() -> int:
 class ComputeSettings:
     """How and where a batch computes (the `[compute]` section of a config).
 
-    `workers`, `threads_per_worker` and `memory_limit` size the local kinds ("threads",
+    `workers`, `threads_per_worker` and `memory_limit` size the local kinds ("auto", "threads",
     "processes"). For "slurm"/"pbs", each of `jobs` batch jobs asks for `cores` cores and
     `memory` memory (per job) for `walltime`, and runs `cores // threads_per_worker` worker
     processes; `queue`, `account`, `job_extra_directives` (extra `#SBATCH`/`#PBS` lines),
@@ -52,7 +66,7 @@ class ComputeSettings:
     (network interface, e.g. "ib0") go into the job script.
     """
 
-    kind: str = "threads"
+    kind: str = "auto"
     workers: int = field(default_factory=cores_available)
     threads_per_worker: int = 1
     memory_limit: str | None = None  # per local worker, e.g. "4GiB"; None: dask's "auto"
@@ -95,8 +109,20 @@ def _job_queue_module(kind: str):
     return dask_jobqueue
 
 
-def _job_kwargs(settings: ComputeSettings) -> dict:
-    """Keyword arguments shared by dask-jobqueue's cluster and job classes."""
+def job_name(batch: str | None) -> str:
+    """The name of a batch's worker jobs (what `squeue`/`qstat` show): the tool's and the batch's."""
+    if not batch:
+        return JOB_NAME
+    cleaned = re.sub(r"[^A-Za-z0-9._-]+", "_", str(batch)).strip("._-")[:40]
+    return f"{JOB_NAME}-{cleaned}" if cleaned else JOB_NAME
+
+
+def _job_kwargs(settings: ComputeSettings, batch: str | None = None, out_dir: str | Path | None = None) -> dict:
+    """Keyword arguments shared by dask-jobqueue's cluster and job classes.
+
+    Worker logs go to `log_directory`, else under `out_dir` (`LOG_FOLDER`), else dask-jobqueue's default
+    (the scheduler's own: `slurm-<id>.out` in the folder the command ran from).
+    """
     if settings.cores is None or settings.memory is None:
         raise ComputeError(
             f"compute kind '{settings.kind}' needs cores and memory per job "
@@ -106,7 +132,7 @@ def _job_kwargs(settings: ComputeSettings) -> dict:
         cores=settings.cores,
         memory=settings.memory,
         processes=max(1, settings.cores // settings.threads_per_worker),
-        job_name=JOB_NAME,
+        job_name=job_name(batch),
         job_extra_directives=list(settings.job_extra_directives),
         job_script_prologue=list(settings.job_script_prologue),
     )
@@ -115,7 +141,7 @@ def _job_kwargs(settings: ComputeSettings) -> dict:
         account=settings.account,
         walltime=settings.walltime,
         local_directory=settings.local_directory,
-        log_directory=settings.log_directory,
+        log_directory=settings.log_directory or (str(Path(out_dir) / LOG_FOLDER) if out_dir else None),
         interface=settings.interface,
     )
     kwargs.update({key: value for key, value in optional.items() if value is not None})
@@ -129,12 +155,13 @@ def _job_classes(settings: ComputeSettings):
     return jobqueue.PBSCluster, jobqueue.pbs.PBSJob
 
 
-def render_job_script(settings: ComputeSettings) -> str:
+def render_job_script(settings: ComputeSettings, *, batch: str | None = None,
+                      out_dir: str | Path | None = None) -> str:
     """The batch script each worker job of a SLURM/PBS cluster would be submitted with.
 
     Rendered by dask-jobqueue exactly as its cluster would (`cluster.job_script()` builds the
     same job object), but without starting a scheduler or submitting anything; the scheduler
-    address is the placeholder `SCHEDULER_PLACEHOLDER`.
+    address is the placeholder `SCHEDULER_PLACEHOLDER`. `batch` and `out_dir` as for `open_compute`.
     """
     if settings.kind not in JOB_QUEUE_KINDS:
         raise ComputeError(
@@ -142,7 +169,7 @@ def render_job_script(settings: ComputeSettings) -> str:
         )
     _, job_class = _job_classes(settings)
     try:
-        job = job_class(SCHEDULER_PLACEHOLDER, name="dummy-name", **_job_kwargs(settings))
+        job = job_class(SCHEDULER_PLACEHOLDER, name="dummy-name", **_job_kwargs(settings, batch, out_dir))
     except ValueError as error:  # dask-jobqueue's own checks (memory strings and the like)
         raise ComputeError(f"compute kind '{settings.kind}': {_first_line(error)}") from error
     return job.job_script()
@@ -152,19 +179,75 @@ def _first_line(error: BaseException) -> str:
     return (str(error).strip().splitlines() or [type(error).__name__])[0]
 
 
+class LocalPool:
+    """dask scheduler of kind "auto": `workers` processes of this machine, each computing whole tasks.
+
+    Called by dask as a scheduler (``dask.config.set(scheduler=pool)``). A graph whose batch declared fewer
+    than `SMALL_BATCH_BYTES` of input (`BATCH_BYTES_KEY`), or declared nothing, runs on `workers` threads
+    here; otherwise on the process pool, started at its first use and reused until `close`. Workers
+    start from a fork server that has imported the extractor once (the "forkserver" start method: a clean
+    process, not a copy of this one with its open files and threads).
+    """
+
+    def __init__(self, workers: int):
+        self.workers = max(1, int(workers))
+        self._executor = None
+
+    def uses_processes(self) -> bool:
+        declared = dask.config.get(BATCH_BYTES_KEY, None)
+        return self.workers > 1 and declared is not None and declared >= SMALL_BATCH_BYTES
+
+    def __call__(self, dsk, keys, **kwargs):
+        kwargs.pop("num_workers", None)
+        if not self.uses_processes():
+            import dask.threaded
+
+            return dask.threaded.get(dsk, keys, num_workers=self.workers, **kwargs)
+        import dask.multiprocessing
+
+        return dask.multiprocessing.get(dsk, keys, pool=self._pool(), num_workers=self.workers, **kwargs)
+
+    def _pool(self):
+        if self._executor is None:
+            from concurrent.futures import ProcessPoolExecutor
+
+            methods = multiprocessing.get_all_start_methods()
+            context = multiprocessing.get_context("forkserver" if "forkserver" in methods else "spawn")
+            if context.get_start_method() == "forkserver":
+                context.set_forkserver_preload(["sensemble.extractor.filemeans", "xarray"])
+            self._executor = ProcessPoolExecutor(self.workers, mp_context=context)
+        return self._executor
+
+    def close(self) -> None:
+        if self._executor is not None:
+            self._executor.shutdown(wait=True, cancel_futures=True)
+            self._executor = None
+
+
 @contextlib.contextmanager
-def open_compute(settings: ComputeSettings) -> Iterator[object | None]:
+def open_compute(settings: ComputeSettings, *, batch: str | None = None,
+                 out_dir: str | Path | None = None) -> Iterator[object | None]:
     """Run the dask work inside the `with` block as `settings` say.
 
     Yields a `distributed.Client` (kinds "processes", "address", "slurm", "pbs") or None
-    (kind "threads": dask's local threaded scheduler with `workers` threads, no client).
-    Clusters started here are closed on exit, also when the block raises.
+    (kind "auto": a `LocalPool` of `workers` processes; kind "threads": dask's local threaded
+    scheduler with `workers` threads). Clusters and pools started here are closed on exit, also
+    when the block raises. For the job-queue kinds, `batch` names the worker jobs (`job_name`) and
+    their logs go under `out_dir` unless `log_directory` is set.
     """
     if settings.kind not in KINDS:
         raise ComputeError(f"unknown compute kind '{settings.kind}'; choose one of {', '.join(KINDS)}")
     if settings.kind == "threads":
         with dask.config.set(scheduler="threads", num_workers=max(1, settings.workers)):
             yield None
+        return
+    if settings.kind == "auto":
+        pool = LocalPool(settings.workers)
+        try:
+            with dask.config.set(scheduler=pool):
+                yield None
+        finally:
+            pool.close()
         return
 
     from distributed import Client, LocalCluster
@@ -188,6 +271,7 @@ def open_compute(settings: ComputeSettings) -> Iterator[object | None]:
                     processes=True,
                     memory_limit=settings.memory_limit or "auto",
                     dashboard_address=settings.dashboard_address,
+                    scheduler_kwargs=None if settings.dashboard_address else {"dashboard": False},
                     local_directory=settings.local_directory,
                 )
             except ValueError as error:  # e.g. a memory limit dask cannot read
@@ -202,7 +286,7 @@ def open_compute(settings: ComputeSettings) -> Iterator[object | None]:
             else:
                 scheduler_options = {"dashboard": False}
             try:
-                cluster = cluster_class(scheduler_options=scheduler_options, **_job_kwargs(settings))
+                cluster = cluster_class(scheduler_options=scheduler_options, **_job_kwargs(settings, batch, out_dir))
             except ValueError as error:
                 raise ComputeError(f"compute kind '{settings.kind}': {_first_line(error)}") from error
             stack.callback(cluster.close)

@@ -189,7 +189,7 @@ BAD_CONFIGS = {
                                                             "did you mean 'fit_years'?"]),
     "unknown section": ("[emulater]\nscenario = \"demo-rise\"\n", ["unknown section [emulater]", "[emulator]"]),
     "wrong type": ("[compute]\nworkers = \"two\"\n", ["[compute] workers must be an integer", "got \"two\""]),
-    "wrong value": ("[compute]\nkind = \"gpu\"\n", ["[compute] kind must be one of \"threads\""]),
+    "wrong value": ("[compute]\nkind = \"gpu\"\n", ["[compute] kind must be one of \"auto\", \"threads\""]),
     "impossible window": ("[extraction]\nfit_years = [1, 40]\nearly_years = [1, 50]\nlate_years = [11, 40]\n",
                           ["[extraction] early_years [1, 50] must lie within fit_years [1, 40]"]),
     "reversed window": ("[extraction]\ntcr_years = [30, 11]\n", ["[extraction] tcr_years must be [start, end]"]),

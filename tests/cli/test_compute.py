@@ -147,3 +147,47 @@ def test_compute_batch_raises_the_task_error():
     with open_compute(ComputeSettings(kind="threads", workers=1)):
         with pytest.raises(ArithmeticError, match="bad block"):
             compute_batch(broken, progress=True)
+
+
+def test_auto_runs_small_batches_on_threads_and_large_ones_on_a_process_pool():
+    import os
+
+    from sensemble.compute import SMALL_BATCH_BYTES, LocalPool
+    from sensemble.extractor.schedule import BATCH_BYTES_KEY
+
+    def worker_pid(block):
+        return np.full(block.shape, os.getpid(), dtype=np.int64)
+
+    pids = da.zeros(8, chunks=2).map_blocks(worker_pid, dtype=np.int64)
+    with open_compute(ComputeSettings(kind="auto", workers=2)) as client:
+        assert client is None and active_client() is None
+        pool = dask.config.get("scheduler")
+        assert isinstance(pool, LocalPool)
+        threaded = weighted_mean_graph().compute()
+        assert set(pids.compute()) == {os.getpid()}  # nothing declared: threads here
+        with dask.config.set({BATCH_BYTES_KEY: SMALL_BATCH_BYTES - 1}):
+            assert set(pids.compute()) == {os.getpid()}
+        with dask.config.set({BATCH_BYTES_KEY: SMALL_BATCH_BYTES}):
+            assert os.getpid() not in set(pids.compute())  # worker processes
+            in_processes = weighted_mean_graph().compute()
+            (batched,) = compute_batch(weighted_mean_graph(), progress=True)
+    assert pool._executor is None  # the pool is shut down with the block
+    np.testing.assert_array_equal(in_processes, threaded)
+    np.testing.assert_array_equal(batched, threaded)
+
+
+def test_the_default_is_auto():
+    assert ComputeSettings().kind == "auto"
+
+
+def test_job_names_carry_the_batch_and_logs_go_under_the_output_folder(tmp_path):
+    pytest.importorskip("dask_jobqueue")
+    settings = ComputeSettings(kind="slurm", cores=2, memory="4GiB")
+    lines = render_job_script(settings, batch="ensemble 2026/spring", out_dir=tmp_path).splitlines()
+    assert "#SBATCH -J sensemble-worker-ensemble_2026_spring" in lines
+    assert f"#SBATCH -e {tmp_path / 'worker-logs'}/sensemble-worker-ensemble_2026_spring-%J.err" in lines
+    # an explicit log_directory wins
+    explicit = ComputeSettings(kind="pbs", cores=2, memory="4GiB", log_directory=str(tmp_path / "mine"))
+    script = render_job_script(explicit, batch="b", out_dir=tmp_path)
+    assert "#PBS -N sensemble-worker-b" in script.splitlines()
+    assert str(tmp_path / "mine") in script and "worker-logs" not in script

@@ -112,7 +112,7 @@ def test_non_existent_archive_path(tmp_path):
         ("[prediction]\nthresholds = [1.5, -2.0]\n", "thresholds must be > 0"),
         ("[extraction]\nbootstrap_samples = 0\n", "bootstrap_samples must be > 0"),
         ("[compute]\nworkers = 0\n", "workers must be > 0"),
-        ('[compute]\nkind = "gpu"\n', 'kind must be one of "threads", "processes", "address", "slurm", "pbs"'),
+        ('[compute]\nkind = "gpu"\n', 'kind must be one of "auto", "threads", "processes", "address", "slurm", "pbs"'),
         ('[emulator]\nkernel = "cubic"\n', 'kernel must be one of "matern52", "rbf"'),
         ("[extraction]\nbootstrap_block = 200\n", "bootstrap_block (200 years) is longer than fit_years"),
         ('[compute]\nkind = "slurm"\ncores = 4\n', 'kind = "slurm" needs memory'),

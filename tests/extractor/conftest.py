@@ -251,3 +251,45 @@ def cmip():
         grid=grid,
         month_list=month_list,
     )
+
+
+def rewrite_file(src, dst, *, file_format: str = "NETCDF4", chunk_steps: int | None = None, compress: bool = True,
+                 pack: bool = False, transpose: bool = False) -> Path:
+    """Copy a NetCDF file with its fields (time, lat, lon) stored another way.
+
+    ``file_format`` "NETCDF3_64BIT_OFFSET" writes a classic, uncompressed file; ``chunk_steps`` sets the time
+    steps per storage chunk (1: the layout many CMIP writers produce); ``pack`` stores the fields as int16 with
+    ``scale_factor``/``add_offset`` (CF packing); ``transpose`` stores them as (time, lon, lat).
+    """
+    dst = Path(dst)
+    dst.parent.mkdir(parents=True, exist_ok=True)
+    with netCDF4.Dataset(src) as a, netCDF4.Dataset(dst, "w", format=file_format) as b:
+        b.setncatts({k: a.getncattr(k) for k in a.ncattrs()})
+        for name, dim in a.dimensions.items():
+            b.createDimension(name, None if dim.isunlimited() else len(dim))
+        for name, var in a.variables.items():
+            var.set_auto_maskandscale(False)
+            attrs = {k: var.getncattr(k) for k in var.ncattrs() if k != "_FillValue"}
+            fill = var.getncattr("_FillValue") if "_FillValue" in var.ncattrs() else None
+            dims, data, dtype = var.dimensions, var[...], var.dtype
+            kwargs = {}
+            if len(dims) == 3 and dims[0] == "time":
+                if transpose:
+                    dims, data = (dims[0], dims[2], dims[1]), data.transpose(0, 2, 1)
+                if pack:
+                    missing = ~np.isfinite(data) if fill is None else (data == fill) | ~np.isfinite(data)
+                    lo, hi = float(data[~missing].min()), float(data[~missing].max())
+                    scale = np.float32((hi - lo) / 60000.0 or 1.0)
+                    offset = np.float32((hi + lo) / 2.0)
+                    data = np.where(missing, -32768, np.round((data - offset) / scale)).astype("i2")
+                    dtype, fill = np.dtype("i2"), np.int16(-32768)
+                    attrs.update(scale_factor=scale, add_offset=offset)
+                if file_format.startswith("NETCDF4"):
+                    steps = chunk_steps or max(1, data.shape[0])
+                    kwargs = dict(zlib=compress, complevel=1, shuffle=compress,
+                                  chunksizes=(min(steps, max(1, data.shape[0])),) + data.shape[1:])
+            v = b.createVariable(name, dtype, dims, fill_value=fill, **kwargs)
+            v.setncatts(attrs)
+            if data.size:
+                v[:] = data
+    return dst

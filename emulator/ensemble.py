@@ -209,6 +209,10 @@ class EnsembleEmulator(BaseEstimator):
         """Random pathways (n_cases, n_samples, n_years) from the predictive distribution."""
         return self._fitted().sample_paths(X, n_samples, random_state=random_state)
 
+    def quantiles(self, X, probabilities):
+        """Per-year quantiles (n_cases, n_probabilities, n_years) of the predictive distribution at X."""
+        return self._fitted().quantiles(X, probabilities)
+
     def spread_of_mean(self, X, last_years: int = 10):
         return self._fitted().spread_of_mean(X, last_years)
 

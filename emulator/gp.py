@@ -4,69 +4,48 @@ What is predicted: the annual warming of *one realisation* of a model with the g
 the forced response; its spread = uncertainty of the forced response (the emulator's, including the
 model-to-model "structural" scatter the inputs do not explain) + internal variability (when given).
 
-Mean: the two-layer response (emulator.ebm) at each input, with ensemble-typical heat capacities and
-λ = F2x / ecs_eff. The training pathways are single noisy realisations, so their residuals from that mean
-are first smoothed along years (emulator.smoothing: the forced part; the internal variability is not
-interpolated into the mean). The smoothed residuals are reduced to principal components (SVD) keeping at
-least `variance_kept` of their variance; one scikit-learn `GaussianProcessRegressor` per component
-(Matérn 5/2 with one length scale per standardised input, plus white noise; `normalize_y`). The white
-noise is the part of the model-to-model scatter the inputs cannot explain (e.g. heat uptake that differs
-between models of equal ecs_eff): it stays in the predictive variance.
+Mean: the two-layer response (emulator.physics_mean) at each input. The training pathways are single noisy
+realisations, so their residuals from that mean are first smoothed along years (emulator.smoothing: the
+forced part). The smoothed residuals are reduced to principal components (SVD) keeping at least
+`variance_kept` of their variance; each component's score gets a Bayesian GP (emulator.component_gp: constant
+mean and amplitude integrated out, correlation parameters integrated over a grid; a Student-t
+with n − 1 degrees of freedom for a new model).
 
-Predictive variance of a year = Σ_j σ_j² v_jt² (GP variances through the components) + the variance of the
-discarded components + internal variability (AR(1) fitted to the control runs). With
-`small_sample_correction`, each σ_j² is the Bayesian GP emulator's variance (Oakley & O'Hagan 2002,
-Biometrika; Conti & O'Hagan 2010, J. Stat. Plan. Inference; from memory) at the fitted correlation
-lengths and noise ratio: the amplitude re-estimated from the generalised least-squares residuals over
-n − 1 degrees of freedom, the uncertainty of the unknown constant mean added, and the Student-t (n − 1
-degrees of freedom) widened to a Gaussian with the same 90 % interval. With ~10 training models the
-plug-in maximum-likelihood variance is otherwise too small by about a third.
+A new model's forced residual is: the components' t variables through their directions + the part outside the
+kept components — the basis error of Higdon et al. (2008, JASA, from memory), estimated by leave-one-model-out:
+each training model's residual outside the components of the others — + the internal variability the smoothing
+removes. The internal variability the smoothing keeps stays in the training residuals, so it is already in the
+GP's nugget and the basis error: only (I − S)·ε is added (S the smoother, ε AR(1) from the control runs), so it
+is not counted twice. Quantiles per year: the sum is matched to one Student-t (scale² the sum of the terms'
+scale², degrees of freedom by Welch–Satterthwaite); exact when one component dominates.
 """
 from __future__ import annotations
 
 import os
-import warnings
 from concurrent.futures import ThreadPoolExecutor
 
 import numpy as np
-from scipy.linalg import cho_solve
 from scipy.stats import norm, t as student_t
 from sklearn.base import BaseEstimator
-from sklearn.exceptions import ConvergenceWarning
-from sklearn.gaussian_process import GaussianProcessRegressor
-from sklearn.gaussian_process.kernels import RBF, ConstantKernel, Matern, WhiteKernel
 from threadpoolctl import threadpool_limits  # installed with scikit-learn
 
+from .component_gp import ComponentGP
 from .errors import EmulatorInputError
 from .physics_mean import MEAN_PARAMETERS, PhysicsMean
 from .settings import KERNELS, SMOOTHERS  # declared with the estimator's constraints
-from .smoothing import forced_part
+from .smoothing import gaussian_smoother, response_span, smoother_kind
 from .variability import ar1_noise
 
-__all__ = ["PathwayEmulator", "make_kernel", "small_sample_factor", "KERNELS"]
-
-#: Length scales on standardised inputs. The floor sits just above the typical spacing of neighbouring models
-#: (≈ 3.5 sd / (n − 1) ≈ 0.3–0.5 sd for 8–13 models): shorter scales let a GP thread each model's own
-#: structural deviation and claim certainty near the training points. 0.6 was chosen over 0.3 and 1.0 on the
-#: leave-one-model-out scores of the demo and a synthetic ensemble (our own choice, no outside source).
-LENGTH_SCALE_BOUNDS = (0.6, 1e2)
+__all__ = ["PathwayEmulator", "t_sd_factor", "KERNELS"]
 
 
-def make_kernel(kind: str, n_inputs: int):
-    """Amplitude × (Matérn ν = 5/2 or RBF, one length scale per input) + white noise, on standardised inputs."""
-    if kind == "matern52":
-        shape = Matern(length_scale=np.ones(n_inputs), length_scale_bounds=LENGTH_SCALE_BOUNDS, nu=2.5)
-    elif kind == "rbf":
-        shape = RBF(length_scale=np.ones(n_inputs), length_scale_bounds=LENGTH_SCALE_BOUNDS)
-    else:
-        raise EmulatorInputError(f"unknown kernel {kind!r}", hint=f"choose one of {', '.join(KERNELS)}")
-    return ConstantKernel(1.0, (1e-3, 1e3)) * shape + WhiteKernel(1e-2, (1e-8, 1e1))
-
-
-def small_sample_factor(n: int) -> float:
-    """Variance factor widening a Student-t with n − 1 degrees of freedom to the Gaussian with the same
-    central 90 % interval: (t_0.95,n−1 / z_0.95)² (scipy.stats quantiles)."""
-    return float((student_t.ppf(0.95, int(n) - 1) / norm.ppf(0.95)) ** 2)
+def t_sd_factor(dof) -> np.ndarray:
+    """Standard deviation of a Student-t per unit scale: √(ν/(ν − 2)); for ν ≤ 2 (infinite variance) the
+    Gaussian with the same central 90 % interval, t_0.95,ν / z_0.95 (scipy.stats quantiles)."""
+    dof = np.asarray(dof, float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        factor = np.where(dof > 2, np.sqrt(dof / (dof - 2.0)), student_t.ppf(0.95, np.maximum(dof, 1.0)) / norm.ppf(0.95))
+    return np.where(np.isinf(dof), 1.0, factor)
 
 
 class PathwayEmulator(BaseEstimator):
@@ -192,76 +171,64 @@ class PathwayEmulator(BaseEstimator):
         self.x_mean_ = X.mean(axis=0)
         scale = X.std(axis=0)
         self.x_scale_ = np.where(scale > 0, scale, 1.0)
-        # the forced part of each single realisation; its internal variability re-enters as the AR(1) term
-        residuals = forced_part(Y - self.mean_model_(X), self.smoothing, self.mean_model_.forcing)
+        self._set_smoother()
+        # the forced part of each single realisation; what the smoothing removes re-enters as internal variability
+        residuals = self._smooth(Y - self.mean_model_(X))
         self.residual_mean_ = residuals.mean(axis=0)
-        centred = residuals - self.residual_mean_
-        u, s, vt = np.linalg.svd(centred, full_matrices=False)
-        rank = int(np.sum(s > 1e-12 * max(s[0], 1e-300))) if s.size else 0
-        total = np.sum(s[:rank] ** 2)
-        if rank == 0:
-            k = 1  # no residual variance: one (zero) component keeps the machinery uniform
-            ratio = np.zeros(1)
-        else:
-            ratio = s[:rank] ** 2 / total
-            k = int(np.searchsorted(np.cumsum(ratio), float(self.variance_kept) - 1e-12) + 1)
-            k = max(1, min(k, int(self.max_components), rank))
-        self.n_components_ = k
-        self.components_ = vt[:k].copy()
-        self.scores_ = u[:, :k] * s[:k]
-        self.singular_values_ = s.copy()
-        self.explained_variance_ratio_ = ratio[:k].copy()
-        self.truncated_components_ = vt[k:rank].copy()
-        self.truncated_scale_ = s[k:rank] / np.sqrt(max(n - 1, 1))
-        if self.small_sample_correction:
-            # a new run's score from a sample of n with estimated mean and variance (Student-t, n − 1 dof)
-            self.truncated_scale_ = self.truncated_scale_ * np.sqrt((1.0 + 1.0 / n) * small_sample_factor(n))
-        self.truncation_variance_ = (self.truncated_scale_ ** 2) @ (self.truncated_components_ ** 2) \
-            if rank > k else np.zeros(n_years)
+        self.components_, self.scores_, ratio = principal_components(residuals - self.residual_mean_,
+                                                                     self.variance_kept, self.max_components)
+        self.n_components_ = len(self.components_)
+        self.explained_variance_ratio_ = ratio
+        self.basis_error_ = basis_error(residuals, self.n_components_)
+        self.truncation_variance_ = np.sum(self.basis_error_ ** 2, axis=0)
         self.internal_variability_ = None if self.internal_variability is None else \
             (float(self.internal_variability[0]), float(self.internal_variability[1]))
+        self._set_internal_variance()
         Xs = self._standardise(X)
         # Tiny matrices: threaded BLAS only adds overhead (measured ×2 on 2 cores).
-        with threadpool_limits(limits=1, user_api="blas"), warnings.catch_warnings(record=True) as caught:
-            warnings.simplefilter("always", ConvergenceWarning)
-            self.gps_ = [self._fit_gp(Xs, self.scores_[:, j], j) for j in range(k)]
-        # hyperparameters at a bound are worth knowing, not worth a console full of warnings
-        self.fit_warnings_ = sorted({str(w.message).split(". Decreasing")[0].split(". Increasing")[0] for w in caught
-                                     if issubclass(w.category, ConvergenceWarning)})
-        self._set_variance_terms()
+        with threadpool_limits(limits=1, user_api="blas"):
+            self.gps_ = [self._component_gp().fit(Xs, self.scores_[:, j]) for j in range(self.n_components_)]
+        self.fit_warnings_ = []
         return self
 
-    def _set_variance_terms(self):
-        """Per component: `variance_scale_` and the GLS terms of the unknown constant mean (`_mean_weights`,
-        `_mean_precision`). Depends only on the fitted GPs, so loading a saved emulator rebuilds it exactly."""
-        k = self.n_components_
-        self.variance_scale_ = np.ones(k)
-        self._mean_weights = [None] * k
-        self._mean_precision = np.full(k, np.inf)
-        if not self.small_sample_correction:
-            return
-        factor = small_sample_factor(len(self.X_train_))
-        for j, gp in enumerate(self.gps_):
-            y = np.asarray(gp.y_train_, float).reshape(-1)  # normalised scores (normalize_y)
-            ones = np.ones_like(y)
-            weights = cho_solve((gp.L_, True), ones)  # K⁻¹1
-            precision = float(ones @ weights)  # 1ᵀK⁻¹1
-            beta = float(weights @ y) / precision  # GLS constant mean
-            r = y - beta
-            amplitude = float(r @ cho_solve((gp.L_, True), r)) / (len(y) - 1)  # σ̂² relative to the fitted K
-            self.variance_scale_[j] = amplitude * factor
-            self._mean_weights[j] = weights
-            self._mean_precision[j] = precision
+    def _component_gp(self) -> ComponentGP:
+        return ComponentGP(self.kernel, bool(self.small_sample_correction))
 
-    def _fit_gp(self, Xs, z, j, kernel=None):
-        gp = GaussianProcessRegressor(
-            kernel=kernel if kernel is not None else make_kernel(self.kernel, Xs.shape[1]),
-            normalize_y=True,
-            n_restarts_optimizer=int(self.n_restarts_optimizer) if kernel is None else 0,
-            optimizer="fmin_l_bfgs_b" if kernel is None else None,
-            random_state=None if self.random_state is None else int(self.random_state) + j,
-        )
-        return gp.fit(Xs, z)
+    def _set_smoother(self):
+        """The smoother S along years: `_span` (orthonormal columns, S = U Uᵀ) for "response", `_smoother` (a full
+        matrix) for "gaussian", both None for "none" (S = I). Rebuilt from the forcing on loading."""
+        kind = smoother_kind(self.smoothing, self.mean_model_.forcing)
+        n_years = self.mean_model_.n_years
+        self._span = response_span(self.mean_model_.forcing) if kind == "response" else None
+        self._smoother = gaussian_smoother(n_years) if kind == "gaussian" and n_years >= 3 else None
+        self._smooths = kind != "none" and n_years >= 3
+
+    def _smooth(self, series):
+        if self._span is not None:
+            return (series @ self._span) @ self._span.T
+        if self._smoother is not None:
+            return series @ self._smoother.T
+        return np.array(series, float)
+
+    def _unsmoothed(self, series):
+        """(I − S) applied along the last axis: the part of a series the smoothing removes."""
+        if not self._smooths:
+            return np.zeros_like(series)
+        return series - self._smooth(series)
+
+    def _set_internal_variance(self):
+        """Per-year variance of (I − S)ε with ε the AR(1) internal variability (0 without one)."""
+        n_years = self.mean_model_.n_years
+        self._iv_covariance = None
+        self.internal_variance_ = np.zeros(n_years)
+        if self.internal_variability_ is None or self.internal_variability_[0] == 0 or not self._smooths:
+            return
+        sd, phi = self.internal_variability_
+        lags = np.abs(np.subtract.outer(np.arange(n_years), np.arange(n_years)))
+        cov = sd ** 2 * phi ** lags  # AR(1) covariance (textbook)
+        kept = self._unsmoothed(np.eye(n_years))  # rows: (I − S) e_i, i.e. (I − S)ᵀ
+        self._iv_covariance = kept.T @ cov @ kept
+        self.internal_variance_ = np.diag(self._iv_covariance).copy()
 
     def _standardise(self, X):
         X = np.asarray(X, float)
@@ -281,11 +248,12 @@ class PathwayEmulator(BaseEstimator):
     grid_points = 8193
 
     def component_predictions(self, X):
-        """GP mean and sd of each component at X: two arrays (n_cases, n_components).
+        """Location and scale of each component's predictive t at X: two arrays (n_cases, n_components);
+        degrees of freedom `dof_`.
 
         With one input and more than `exact_limit` points (large input distributions), each GP is evaluated
         exactly on a `grid_points` grid spanning them and linearly interpolated (the Matérn 5/2 and RBF posterior
-        mean and sd are smooth; error below 1e-3 of the component's scale, far below the predictive sd; tested).
+        location and scale are smooth; error below 1e-3 of the component's scale, far below the predictive sd; tested).
         """
         self._check_fitted()
         Xs = self._standardise(X)
@@ -298,21 +266,20 @@ class PathwayEmulator(BaseEstimator):
             return mu, sd
         return self._component_predictions_exact(Xs)
 
+    @property
+    def dof_(self) -> np.ndarray:
+        """Degrees of freedom of each component's predictive t (inf: Gaussian)."""
+        return np.array([gp.dof_ for gp in self.gps_], float)
+
     def _component_predictions_exact(self, Xs):
         mu = np.empty((Xs.shape[0], self.n_components_))
         sd = np.empty_like(mu)
 
         def one(j):
-            gp = self.gps_[j]
-            mu[:, j], sd[:, j] = gp.predict(Xs, return_std=True)
-            if self._mean_weights[j] is not None:
-                # Bayesian emulator variance: σ̂² [c** − k*ᵀK⁻¹k* + (1 − 1ᵀK⁻¹k*)² / 1ᵀK⁻¹1], widened to t's 90 %
-                unexplained = 1.0 - gp.kernel_(Xs, gp.X_train_) @ self._mean_weights[j]
-                var = sd[:, j] ** 2 + (gp._y_train_std ** 2) * unexplained ** 2 / self._mean_precision[j]
-                sd[:, j] = np.sqrt(self.variance_scale_[j] * var)
+            mu[:, j], sd[:, j] = self.gps_[j].predict(Xs)
 
         if Xs.shape[0] >= 5000 and self.n_components_ > 1:
-            # large batches: the GPs' numpy work releases the GIL, so threads use both cores
+            # large batches: numpy's work releases the GIL, so threads use both cores
             with ThreadPoolExecutor(max_workers=min(os.cpu_count() or 1, self.n_components_)) as pool:
                 list(pool.map(one, range(self.n_components_)))
         else:
@@ -322,11 +289,11 @@ class PathwayEmulator(BaseEstimator):
 
     def _base(self, X, mu):
         X = np.asarray(X, float).reshape(-1, len(self.x_mean_))
+        ecs = X[:, self.mean_model_.ecs_index] if self.mean_model_.forcing is not None else None
+        if ecs is not None and np.any(ecs <= 0):
+            raise EmulatorInputError(f"ecs_eff = {float(ecs[ecs <= 0][0]):g} K: the two-layer mean needs a positive "
+                                     "sensitivity", hint="predict at ecs_eff > 0")
         return self.mean_model_(X) + self.residual_mean_ + mu @ self.components_
-
-    @property
-    def internal_variance_(self) -> float:
-        return 0.0 if self.internal_variability_ is None else self.internal_variability_[0] ** 2
 
     @property
     def prediction_target_(self) -> str:
@@ -344,52 +311,97 @@ class PathwayEmulator(BaseEstimator):
 
         The mean is the forced response; the sd is that of a single realisation's annual warming when
         internal variability is set, of the forced response otherwise (`prediction_target_`)."""
-        mu, sd = self.component_predictions(X)
+        mu, scale = self.component_predictions(X)
         mean = self._base(X, mu)
         if not return_std:
             return mean
+        sd = scale * t_sd_factor(self.dof_)
         var = (sd ** 2) @ (self.components_ ** 2) + self.truncation_variance_ + self.internal_variance_
         return mean, np.sqrt(var)
 
-    def spread_of_mean(self, X, last_years: int = 10) -> tuple[np.ndarray, np.ndarray]:
-        """Sd of the mean over the last `last_years` years at X, in two parts: (forced response — emulator
-        and structural, through the components and the truncation —, internal variability). Each (n_cases,).
+    def quantiles(self, X, probabilities) -> np.ndarray:
+        """Per-year quantiles (n_cases, n_probabilities, n_years) of the predictive distribution at X.
 
-        The internal part is the sd of an L-year mean of AR(1) noise, σ² Σ_s Σ_t φ^|s−t| / L² (textbook).
+        One Student-t per year: scale² = Σ_j s_j² v_jt² + basis error + internal variability, degrees of
+        freedom ν = (scale²)² / Σ_j (s_j² v_jt²)² / ν_j (Welch–Satterthwaite, from memory); with a single
+        component and nothing else it is that component's t exactly (scipy.stats.t).
         """
-        _, sd = self.component_predictions(X)
+        mu, scale = self.component_predictions(X)
+        mean = self._base(X, mu)
+        terms = (scale ** 2)[:, :, None] * (self.components_ ** 2)[None, :, :]  # (cases, components, years)
+        total = terms.sum(axis=1) + self.truncation_variance_ + self.internal_variance_
+        dof = self.dof_[None, :, None]
+        with np.errstate(divide="ignore", invalid="ignore"):
+            denominator = np.sum(np.where(np.isinf(dof), 0.0, terms ** 2 / dof), axis=1)
+            nu = np.where(denominator > 0, total ** 2 / denominator, np.inf)
+        p = np.asarray(probabilities, float)[None, :, None]
+        factor = np.where(np.isinf(nu)[:, None, :], norm.ppf(p), student_t.ppf(p, np.minimum(nu, 1e6)[:, None, :]))
+        return mean[:, None, :] + np.sqrt(total)[:, None, :] * factor
+
+    def spread_of_mean(self, X, last_years: int = 10) -> tuple[np.ndarray, np.ndarray]:
+        """Sd of the mean over the last `last_years` years at X, in two parts: (forced response — emulator,
+        structural and basis error —, internal variability the smoothing removed). Each (n_cases,)."""
+        mu, scale = self.component_predictions(X)
         last = int(min(max(1, last_years), self.components_.shape[1]))
         kept = self.components_[:, -last:].mean(axis=1)
-        forced = (sd ** 2) @ (kept ** 2)
-        if len(self.truncated_scale_):
-            forced = forced + (self.truncated_scale_ ** 2) @ (self.truncated_components_[:, -last:].mean(axis=1) ** 2)
+        forced = ((scale * t_sd_factor(self.dof_)) ** 2) @ (kept ** 2)
+        forced = forced + np.sum(self.basis_error_[:, -last:].mean(axis=1) ** 2)
         internal = 0.0
-        if self.internal_variability_ is not None:
-            sd_iv, phi = self.internal_variability_
-            lags = np.abs(np.subtract.outer(np.arange(last), np.arange(last)))
-            internal = sd_iv ** 2 * np.sum(phi ** lags) / last ** 2
+        if self._iv_covariance is not None:
+            internal = float(self._iv_covariance[-last:, -last:].sum()) / last ** 2
         return np.sqrt(forced), np.full(len(forced), np.sqrt(internal))
 
     def sample_paths(self, X, n_samples: int = 1000, random_state=None):
         """Random pathways from the predictive distribution: array (n_cases, n_samples, n_years).
 
-        Components are drawn from their GP marginals at each input (Gaussian, with the small-sample variance
-        when that correction is on); discarded components from their training spread; internal variability as
-        AR(1) noise, so each pathway is one realisation. Correlations between years are kept, so derived
-        quantities (decadal means, crossing years) are sampled consistently.
+        Components are drawn from their predictive t (Gaussian without the small-sample correction); the basis
+        error as Σ_i ξ_i e_i with ξ_i standard normal over the leave-one-out residuals e_i/√n; internal
+        variability as AR(1) noise less its smoothed part, so each pathway is one realisation. Correlations
+        between years are kept, so derived quantities (decadal means, crossing years) are sampled consistently.
         """
         rng = np.random.default_rng(random_state)
-        mu, sd = self.component_predictions(X)
+        mu, scale = self.component_predictions(X)
         base = self._base(X, mu)
         n_cases, n_years = base.shape
         shape = (n_cases, int(n_samples))
-        # all cases and samples at once: (cases, samples, components) @ (components, years)
-        deviations = sd[:, None, :] * rng.standard_normal(shape + (self.n_components_,))
-        out = np.matmul(deviations, self.components_)
+        draws = np.stack([rng.standard_t(dof, shape) if np.isfinite(dof) else rng.standard_normal(shape)
+                          for dof in self.dof_], axis=-1)
+        out = np.matmul(scale[:, None, :] * draws, self.components_)
         out += base[:, None, :]
-        if len(self.truncated_scale_):
-            xi = rng.standard_normal(shape + (len(self.truncated_scale_),)) * self.truncated_scale_
-            out += np.matmul(xi, self.truncated_components_)
-        if self.internal_variability_ is not None and self.internal_variability_[0] > 0:
-            out += ar1_noise(rng, shape + (n_years,), *self.internal_variability_)
+        if len(self.basis_error_):
+            out += np.matmul(rng.standard_normal(shape + (len(self.basis_error_),)), self.basis_error_)
+        if self.internal_variability_ is not None and self.internal_variability_[0] > 0 and self._smooths:
+            noise = ar1_noise(rng, shape + (n_years,), *self.internal_variability_)
+            out += self._unsmoothed(noise)
         return out
+
+
+def principal_components(centred, variance_kept: float, max_components: int):
+    """(components (k, n_years), scores (n, k), explained variance ratios (k,)) of centred residuals:
+    the fewest leading directions keeping `variance_kept` of the variance, at most `max_components`."""
+    u, s, vt = np.linalg.svd(centred, full_matrices=False)
+    rank = int(np.sum(s > 1e-12 * max(s[0], 1e-300))) if s.size else 0
+    if rank == 0:  # no residual variance: one (zero) component keeps the machinery uniform
+        return vt[:1].copy(), np.zeros((centred.shape[0], 1)), np.zeros(1)
+    ratio = s[:rank] ** 2 / np.sum(s[:rank] ** 2)
+    k = int(np.searchsorted(np.cumsum(ratio), float(variance_kept) - 1e-12) + 1)
+    k = max(1, min(k, int(max_components), rank))
+    return vt[:k].copy(), u[:, :k] * s[:k], ratio[:k].copy()
+
+
+def basis_error(residuals, n_components: int) -> np.ndarray:
+    """(n, n_years) rows e_i/√n: each model's residual outside the leading components of the others' (their
+    mean removed) — the basis (discrepancy) error of Higdon et al. (2008, JASA; from memory) estimated by
+    leave-one-model-out, so it also holds what a new model has outside the span of the training models.
+    Σ_i (e_i/√n)² per year is its variance; Σ_i ξ_i e_i/√n, ξ_i ~ N(0, 1), a draw with that covariance."""
+    n = residuals.shape[0]
+    rows = []
+    for i in range(n):
+        others = np.delete(residuals, i, axis=0)
+        centre = others.mean(axis=0)
+        _, s, vt = np.linalg.svd(others - centre, full_matrices=False)
+        rank = int(np.sum(s > 1e-12 * max(s[0], 1e-300))) if s.size else 0
+        basis = vt[: min(n_components, rank)]
+        departure = residuals[i] - centre
+        rows.append(departure - (departure @ basis.T) @ basis)
+    return np.array(rows) / np.sqrt(n)

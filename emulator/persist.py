@@ -1,7 +1,7 @@
 """Saving and loading a fitted `PathwayEmulator` as NetCDF — no pickle.
 
 The file holds the training data, the constructor parameters, the learned arrays (standardisation,
-components, scores, truncation) and each GP's fitted kernel hyperparameters (log-scale `theta`).
+components, scores, basis error) and each GP's fitted correlation parameters (log-scale `theta`).
 Loading refits each GP with the optimiser switched off at those hyperparameters on the same arrays,
 which reproduces the original predictions bit for bit. A SHA-256 checksum over every variable and
 attribute, and a format version, make a tampered or incompatible file fail with a clear message.
@@ -19,13 +19,13 @@ from sensemble.contract.cf import CONVENTIONS, TEMPERATURE_DIFFERENCE, history_l
 
 from .atomic import atomic_path
 from .errors import EmulatorInputError
-from .gp import PathwayEmulator, make_kernel
+from .gp import PathwayEmulator
 from .physics_mean import PhysicsMean
 
 __all__ = ["save_emulator", "load_emulator", "FORMAT", "FORMAT_VERSION"]
 
 FORMAT = "sensemble-pathway-emulator"
-FORMAT_VERSION = 2  # 2: scores from smoothed residuals, small-sample variance (parameters smoothing, small_sample_correction)
+FORMAT_VERSION = 3  # 3: Student-t component GPs at MAP correlation parameters, leave-one-out basis error
 _ARRAYS = {  # attribute → (dims, long name)
     "X_train_": (("run", "input"), "training inputs, one row per training run"),
     "Y_train_": (("run", "year"), "training warming pathways, one row per training run"),
@@ -34,15 +34,14 @@ _ARRAYS = {  # attribute → (dims, long name)
     "residual_mean_": (("year",), "ensemble mean of the residuals from the physics mean"),
     "components_": (("component", "year"), "principal components of the residuals (kept)"),
     "scores_": (("run", "component"), "scores of the training runs on the kept components"),
-    "singular_values_": (("singular",), "singular values of the centred residuals"),
     "explained_variance_ratio_": (("component",), "share of the residual variance of each kept component"),
-    "truncated_components_": (("truncated", "year"), "principal components left out by the truncation"),
-    "truncated_scale_": (("truncated",), "predictive standard deviation of the left-out components' scores"),
-    "truncation_variance_": (("year",), "variance left out by the truncation"),
+    "basis_error_": (("run", "year"), "leave-one-model-out residual outside the kept components, over sqrt(n)"),
+    "truncation_variance_": (("year",), "variance of the basis error (outside the kept components)"),
 }
 # warming and its residuals are temperature differences (CF §3.1.2 units_metadata)
 _UNITS = {"Y_train_": {"units": "K", "units_metadata": TEMPERATURE_DIFFERENCE},
           "residual_mean_": {"units": "K", "units_metadata": TEMPERATURE_DIFFERENCE},
+          "basis_error_": {"units": "K", "units_metadata": TEMPERATURE_DIFFERENCE},
           "truncation_variance_": {"units": "K2"}, "forcing": {"units": "W m-2"}}
 
 
@@ -65,8 +64,17 @@ def save_emulator(emulator: PathwayEmulator, path, metadata: dict | None = None)
     emulator._check_fitted()
     data = {name: (dims, np.asarray(getattr(emulator, name), float), {"long_name": long_name})
             for name, (dims, long_name) in _ARRAYS.items()}
-    data["kernel_theta"] = (("component", "theta"), np.array([gp.kernel_.theta for gp in emulator.gps_]),
-                            {"long_name": "fitted kernel hyperparameters of each component's GP (log scale)"})
+    points = max(len(gp.weights_) for gp in emulator.gps_)
+    thetas = np.full((emulator.n_components_, points, emulator.gps_[0].thetas_.shape[1]), np.nan)
+    weights = np.zeros((emulator.n_components_, points))
+    for j, gp in enumerate(emulator.gps_):
+        thetas[j, : len(gp.weights_)] = gp.thetas_
+        weights[j, : len(gp.weights_)] = gp.weights_
+    data["kernel_theta"] = (("component", "point", "theta"), thetas,
+                            {"long_name": "posterior points of each component's correlation parameters: ln length "
+                                          "scale per input, then ln nugget"})
+    data["kernel_weight"] = (("component", "point"), weights,
+                             {"long_name": "posterior weight of each point of kernel_theta"})
     mm = emulator.mean_model_
     if mm.forcing is not None:
         data["forcing"] = (("year",), np.asarray(mm.forcing, float), {"long_name": "effective radiative forcing of "
@@ -140,9 +148,10 @@ def load_emulator(path) -> tuple[PathwayEmulator, dict]:
     em.internal_variability_ = None if iv is None else (float(iv[0]), float(iv[1]))
     em.n_components_ = em.components_.shape[0]
     em.fit_warnings_ = []
+    em._set_smoother()
+    em._set_internal_variance()
     Xs = em._standardise(em.X_train_)
-    theta = ds["kernel_theta"].values
-    em.gps_ = [em._fit_gp(Xs, em.scores_[:, j], j, kernel=make_kernel(em.kernel, Xs.shape[1]).clone_with_theta(theta[j]))
+    theta, weight = ds["kernel_theta"].values, ds["kernel_weight"].values
+    em.gps_ = [em._component_gp().fit(Xs, em.scores_[:, j], thetas=theta[j][weight[j] > 0], weights=weight[j][weight[j] > 0])
                for j in range(em.n_components_)]
-    em._set_variance_terms()
     return em, json.loads(ds.attrs["metadata"])

@@ -1,11 +1,12 @@
 """Predictions of the fitted emulator for cases: a point in input space, a grid, or a distribution of inputs.
 
-Per case and year: mean, sd and quantiles (default 5/17/50/83/95 %). For a point the per-year predictive
-distribution is Gaussian, so its quantiles are exact (mean + z·sd); for a distribution of inputs the
-pathways are sampled (one per input sample) and mean, sd and quantiles are the sample's.
-Threshold crossings come from sampled pathways: the crossing year is the central year of the first
-`crossing_window`-year running mean at or above the threshold (20-year means as in the IPCC AR6 practice,
-from memory); the probability is the share of sampled pathways crossing within the scenario's horizon,
+Per case and year: mean, sd and quantiles (default 5/17/50/83/95 %). For a point the quantiles are the
+emulator's own (`quantiles`: from its Student-t predictive); for a distribution of inputs the pathways are
+sampled (one per input sample) and mean, sd and quantiles are the sample's, and the quantiles the input samples
+achieved are reported beside the ones asked for (`Prediction.input_quantiles`).
+Threshold crossings come from sampled pathways: the crossing year is when the centred `crossing_window`-year
+running mean reaches the threshold (20-year means as in the IPCC AR6 practice, from memory; the dating
+convention is `crossing_years`'s); the probability is the share of sampled pathways crossing within the scenario's horizon,
 and a year quantile that falls among non-crossing pathways is left empty (not reached).
 A case outside the training inputs' range is flagged `extrapolated`.
 """
@@ -22,10 +23,12 @@ from scipy.stats import norm
 
 from .errors import EmulatorInputError
 
-__all__ = ["Case", "point_case", "lognormal_case", "lognormal_samples", "samples_file_case", "grid_cases",
+__all__ = ["Case", "point_case", "lognormal_case", "lognormal_samples", "likely_range_quantiles", "samples_file_case", "grid_cases",
            "default_cases", "case_from_mapping", "parse_point", "parse_distribution", "predict_cases", "Prediction", "crossing_years"]
 
 LIKELY = (0.17, 0.83)  # the "likely" range as the 17–83 % quantiles
+INPUT_QUANTILE_COLUMNS = ["case", "input", "n_samples", "requested_q17", "requested_q50", "requested_q83",
+                          "achieved_q17", "achieved_q50", "achieved_q83"]
 
 
 @dataclass(frozen=True)
@@ -36,6 +39,7 @@ class Case:
     values: dict | None = None
     samples: np.ndarray | None = None
     description: str = ""
+    requested: dict | None = None  # for a distribution through given quantiles: {input, q17, q50, q83}
 
     @property
     def is_point(self) -> bool:
@@ -87,17 +91,28 @@ def parse_distribution(text: str) -> dict:
                                  "or a CSV file of samples") from None
 
 
-def lognormal_samples(median: float, likely: tuple[float, float], n: int, rng) -> np.ndarray:
-    """Samples of a lognormal through a median and a likely (17–83 %) range.
+def likely_range_quantiles(median: float, likely: tuple[float, float], probabilities) -> np.ndarray:
+    """Quantiles of the two-piece lognormal through a median and a likely (17–83 %) range.
 
-    ln x ~ N(ln median, s) with s = (ln hi − ln lo) / (z_0.83 − z_0.17): the range's ratio sets the width;
-    an asymmetric range is matched on its log width (its centre is the median).
+    ln x = ln median + s·z, z standard normal, with s = (ln median − ln lo)/z_0.83 below the median and
+    s = (ln hi − ln median)/z_0.83 above it: each half is half of a lognormal of its own width, so the median
+    and both ends of the range are matched exactly, an asymmetric range included (a split normal in log space
+    with equal halves' probabilities; with a range symmetric in log it is the plain lognormal).
     """
     lo, hi = float(likely[0]), float(likely[1])
     if not 0 < lo < median < hi:
         raise EmulatorInputError(f"likely range ({lo}, {hi}) must bracket the median {median} with positive values")
-    s = (np.log(hi) - np.log(lo)) / (norm.ppf(LIKELY[1]) - norm.ppf(LIKELY[0]))
-    return np.exp(np.log(median) + s * rng.standard_normal(int(n)))
+    z = norm.ppf(np.asarray(probabilities, float))
+    z83 = norm.ppf(LIKELY[1])
+    width = np.where(z < 0, (np.log(median) - np.log(lo)) / z83, (np.log(hi) - np.log(median)) / z83)
+    return np.exp(np.log(median) + width * z)
+
+
+def lognormal_samples(median: float, likely: tuple[float, float], n: int, rng) -> np.ndarray:
+    """Samples of the two-piece lognormal through a median and a likely (17–83 %) range
+    (`likely_range_quantiles`), by inverting its quantile function at uniform draws."""
+    likely_range_quantiles(median, likely, [0.5])  # validates the range
+    return likely_range_quantiles(median, likely, rng.uniform(size=int(n)))
 
 
 def lognormal_case(input_name: str, median: float, likely, inputs, n_samples: int, rng, fixed: dict | None = None,
@@ -113,7 +128,9 @@ def lognormal_case(input_name: str, median: float, likely, inputs, n_samples: in
         else:
             raise EmulatorInputError(f"distribution case needs a value for input {col!r}")
     name = name or f"{input_name}~lognormal({_fmt(median)};{_fmt(likely[0])}-{_fmt(likely[1])})"
-    return Case(name, samples=np.column_stack(cols), description=f"lognormal, median {median}, likely {likely[0]}–{likely[1]}")
+    return Case(name, samples=np.column_stack(cols),
+                description=f"two-piece lognormal of {input_name}, median {median}, likely {likely[0]}–{likely[1]}",
+                requested={"input": input_name, "q17": float(likely[0]), "q50": float(median), "q83": float(likely[1])})
 
 
 def samples_file_case(path, inputs, name: str | None = None) -> Case:
@@ -178,18 +195,31 @@ def case_from_mapping(spec: dict, inputs, n_samples: int, rng) -> Case:
 
 
 def crossing_years(paths, years, threshold: float, window: int = 20):
-    """Crossing year per sampled pathway (NaN if never): central year of the first running mean ≥ threshold."""
+    """Crossing year per sampled pathway (NaN if never), fractional.
+
+    Convention: year k labels the annual mean of year k; a `window`-year running mean is dated at its centre,
+    years[s] + (window − 1)/2; the crossing is the date at which the running mean reaches the threshold,
+    interpolated linearly between the first window at or above it and the one before (the first window's
+    centre when it is already above). A straight line whose annual values reach the threshold at 50.5 (halfway
+    between years 50 and 51) is dated 50.5 with any window: the running mean of a line is the line at its centre.
+    """
     paths = np.asarray(paths, float)
-    years = np.asarray(years)
+    years = np.asarray(years, float)
     window = int(max(1, min(window, paths.shape[-1])))
     csum = np.cumsum(paths, axis=-1)
     running = csum[..., window - 1:].copy()
     running[..., 1:] -= csum[..., :-window]
     running /= window
+    centres = years[: running.shape[-1]] + (window - 1) / 2.0
     hit = running >= threshold
     crossed = hit.any(axis=-1)
     first = hit.argmax(axis=-1)
-    out = years[first + window // 2].astype(float)
+    before = np.maximum(first - 1, 0)
+    after_value = np.take_along_axis(running, first[..., None], -1)[..., 0]
+    before_value = np.take_along_axis(running, before[..., None], -1)[..., 0]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        fraction = np.where(first > 0, (threshold - before_value) / (after_value - before_value), 1.0)
+    out = centres[before] + np.clip(fraction, 0.0, 1.0) * (centres[first] - centres[before])
     out[~crossed] = np.nan
     return out
 
@@ -201,6 +231,8 @@ class Prediction:
     dataset: xr.Dataset
     crossings: pd.DataFrame
     samples: dict = field(default_factory=dict)
+    #: per distribution case through given quantiles: the 17/50/83 % asked for and achieved by the input samples
+    input_quantiles: pd.DataFrame = field(default_factory=lambda: pd.DataFrame(columns=INPUT_QUANTILE_COLUMNS))
 
     def pathways_table(self) -> pd.DataFrame:
         """`pathways.csv`: case, <inputs…>, year, mean, sd, q05 … q95, flags (then calendar_year if known)."""
@@ -239,7 +271,7 @@ def predict_cases(emulator, cases, *, training_X, years, calendar_years=None, th
     if not cases:
         raise EmulatorInputError("no prediction cases")
     n_years = len(years)
-    names, means, sds, qs, flags, input_values, cross_rows, kept = [], [], [], [], [], [], [], {}
+    names, means, sds, qs, flags, input_values, cross_rows, kept, input_rows = [], [], [], [], [], [], [], {}, []
     for case in cases:
         if case.is_point:
             missing = [c for c in inputs if c not in case.values]
@@ -258,7 +290,8 @@ def predict_cases(emulator, cases, *, training_X, years, calendar_years=None, th
             else:
                 mean, sd = emulator.predict(x, return_std=True)
                 mean, sd = mean[0], sd[0]
-                q = mean[None, :] + z[:, None] * sd[None, :]
+                q = emulator.quantiles(x, quantiles)[0] if hasattr(emulator, "quantiles") else \
+                    mean[None, :] + z[:, None] * sd[None, :]
             outside = np.any((x < lo) | (x > hi))
             flag = "extrapolated" if outside else ""
             shown = x[0]
@@ -272,6 +305,10 @@ def predict_cases(emulator, cases, *, training_X, years, calendar_years=None, th
             share = float(np.mean(np.any((xs < lo) | (xs > hi), axis=1)))
             flag = f"extrapolated_share={share:.2f}" if share > 0 else ""
             shown = np.median(xs, axis=0)
+            if case.requested:
+                achieved = np.quantile(xs[:, inputs.index(case.requested["input"])], [LIKELY[0], 0.5, LIKELY[1]])
+                input_rows.append([case.name, case.requested["input"], len(xs),
+                                   *(case.requested[k] for k in ("q17", "q50", "q83")), *achieved])
         names.append(case.name)
         means.append(mean)
         sds.append(sd)
@@ -311,4 +348,4 @@ def predict_cases(emulator, cases, *, training_X, years, calendar_years=None, th
     if calendar_years is not None:
         ds = ds.assign_coords(calendar_year=("year", np.asarray(calendar_years), {"long_name": "calendar year"}))
     crossings = pd.DataFrame(cross_rows)
-    return Prediction(ds, crossings, kept)
+    return Prediction(ds, crossings, kept, pd.DataFrame(input_rows, columns=INPUT_QUANTILE_COLUMNS))

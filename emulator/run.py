@@ -2,6 +2,7 @@
 
 The one entry point the command line needs. Files written into `out_dir` (each atomically):
 `pathways.csv`, `pathways.nc`, `crossings.csv`, `validation.csv`, `calibration.csv`, `training_runs.csv`,
+`input_distributions.csv` (distribution cases: the input quantiles asked for and achieved),
 `emulator.nc`, `figures/fan_<case>.png`, `figures/validation.png`.
 """
 from __future__ import annotations
@@ -145,6 +146,8 @@ def emulate(extract_dir, out_dir, settings: EmulatorSettings = EmulatorSettings(
     files.append(write_csv(result.pathways_table(), out_dir / "pathways.csv"))
     files.append(_write_netcdf(result.dataset, out_dir / "pathways.nc", ts.scenario))
     files.append(write_csv(result.crossings, out_dir / "crossings.csv"))
+    if len(result.input_quantiles):
+        files.append(write_csv(result.input_quantiles, out_dir / "input_distributions.csv"))
 
     metadata = {
         "scenario": ts.scenario, "source": str(extract_dir), "inputs": list(ts.inputs),
@@ -184,6 +187,7 @@ def emulate(extract_dir, out_dir, settings: EmulatorSettings = EmulatorSettings(
             [f"{len(emulator.emulator_.fit_warnings_)} GP hyperparameter(s) ended at a search bound (usually a component "
              "the inputs do not explain, fitted as noise)"] if emulator.emulator_.fit_warnings_ else []),
         "n_cases": len(cases),
+        "input_quantiles": result.input_quantiles.to_dict(orient="records"),
         "out_dir": str(out_dir),
         "files": [str(f) for f in files],
         "seconds": round(time.perf_counter() - started, 1),
@@ -225,6 +229,10 @@ def format_summary(summary: dict) -> str:
             f"90 % coverage {v['pathway_coverage90']:.2f}; standardized error mean {v['mean_z']:+.2f}, rms {v['rms_z']:.2f}")
     for note in summary.get("notes", []):
         lines.append(f"  note: {note}")
+    for r in summary.get("input_quantiles", []):
+        lines.append(f"  {r['case']}: {r['input']} 17/50/83 % asked {r['requested_q17']:.3g}/{r['requested_q50']:.3g}/"
+                     f"{r['requested_q83']:.3g}, achieved {r['achieved_q17']:.3g}/{r['achieved_q50']:.3g}/"
+                     f"{r['achieved_q83']:.3g} ({r['n_samples']} samples)")
     lines.append(f"{summary['n_cases']} cases predicted; outputs in {summary['out_dir']} ({len(summary['files'])} files, "
                  f"{summary['seconds']} s)")
     return "\n".join(lines)

@@ -25,7 +25,8 @@ from scipy.signal import lfilter
 
 from .settings import SMOOTHERS  # the smoothing choices, declared with the estimator's constraints
 
-__all__ = ["SMOOTHERS", "GAUSSIAN_YEARS", "gaussian_smoother", "response_smoother", "forced_part"]
+__all__ = ["SMOOTHERS", "GAUSSIAN_YEARS", "gaussian_smoother", "response_smoother", "response_span", "smoother_kind",
+           "forced_part"]
 
 GAUSSIAN_YEARS = 5.0
 
@@ -56,13 +57,25 @@ def response_basis(forcing) -> np.ndarray:
     return np.column_stack(columns)
 
 
-def response_smoother(forcing) -> np.ndarray:
-    """(n_years, n_years) orthogonal projection on `response_basis(forcing)` (collinear directions dropped)."""
+def response_span(forcing) -> np.ndarray:
+    """(n_years, r) orthonormal columns spanning `response_basis(forcing)` (collinear directions dropped)."""
     basis = response_basis(forcing)
     basis = basis / np.maximum(np.linalg.norm(basis, axis=0), 1e-300)
     u, s, _ = np.linalg.svd(basis, full_matrices=False)
-    u = u[:, s > 1e-10 * s[0]]
+    return u[:, s > 1e-10 * s[0]]
+
+
+def response_smoother(forcing) -> np.ndarray:
+    """(n_years, n_years) orthogonal projection on `response_basis(forcing)` (collinear directions dropped)."""
+    u = response_span(forcing)
     return u @ u.T
+
+
+def smoother_kind(smoother: str, forcing=None) -> str:
+    """The smoother "auto" stands for: "response" with a forcing, else "gaussian"."""
+    if smoother == "auto":
+        return "response" if forcing is not None else "gaussian"
+    return smoother
 
 
 def forced_part(series, smoother: str = "auto", forcing=None) -> np.ndarray:
@@ -72,8 +85,7 @@ def forced_part(series, smoother: str = "auto", forcing=None) -> np.ndarray:
     gaussian) or "none" (unchanged).
     """
     series = np.asarray(series, float)
-    if smoother == "auto":
-        smoother = "response" if forcing is not None else "gaussian"
+    smoother = smoother_kind(smoother, forcing)
     if smoother == "none" or series.shape[-1] < 3:
         return series.copy()
     if smoother == "response":

@@ -6,6 +6,7 @@ from sklearn.gaussian_process.kernels import ConstantKernel, Matern, WhiteKernel
 
 from sensemble.emulator.ebm import TwoLayerParameters, integrate
 from sensemble.emulator.errors import EmulatorInputError
+from sensemble.emulator.component_gp import ComponentGP, correlation
 from sensemble.emulator.gp import PathwayEmulator
 from sensemble.emulator.variability import ar1_noise, internal_variability_from_control
 
@@ -23,72 +24,79 @@ def step_ensemble(ecs, years, f2x=3.71, noise=0.0, seed=0):
     return t
 
 
-def test_single_output_equals_sklearn_reference():
-    # Reference library: sklearn GaussianProcessRegressor fitted directly to the same standardised inputs
-    # with the same kernel (Matérn 5/2 ARD × amplitude + white noise) must give the same mean and sd to 1e-8
-    # when the physics mean is off, one component is kept and the small-sample correction is off (the
-    # plug-in variance; the correction is checked against its own sources below).
+def test_plug_in_component_gp_equals_sklearn_reference():
+    # Reference library: sklearn GaussianProcessRegressor with the kernel fixed (optimizer=None) at the same
+    # correlation parameters — σ̂² × Matérn 5/2 (one length scale per input) + white noise σ̂²η — fitted to the
+    # scores minus their GLS mean must give the same mean and sd to 1e-8 as the plug-in (no small-sample
+    # correction) component GP: the GP mean and its variance use the same constant mean.
+    from sklearn.gaussian_process import GaussianProcessRegressor
+    from sklearn.gaussian_process.kernels import ConstantKernel, Matern, WhiteKernel
     rng = np.random.default_rng(3)
-    X = rng.uniform(1.5, 5.5, (15, 2))
-    y = np.sin(X[:, 0]) + 0.3 * X[:, 1] + rng.normal(0, 0.05, 15)
-    em = PathwayEmulator(inputs=("ecs_eff", "tcr"), physics_mean=False, max_components=1,
-                         small_sample_correction=False, n_restarts_optimizer=2, random_state=5).fit(X, y[:, None])
-    kernel = ConstantKernel(1.0, (1e-3, 1e3)) * Matern(np.ones(2), (0.6, 1e2), nu=2.5) + WhiteKernel(1e-2, (1e-8, 1e1))
-    mu, sd = X.mean(0), X.std(0)
-    ref = GaussianProcessRegressor(kernel, normalize_y=True, n_restarts_optimizer=2, random_state=5)
-    ref.fit((X - mu) / sd, y)
-    Xq = rng.uniform(1.0, 6.0, (20, 2))
-    m_ref, s_ref = ref.predict((Xq - mu) / sd, return_std=True)
-    m, s = em.predict(Xq, return_std=True)
-    np.testing.assert_allclose(m[:, 0], m_ref, atol=1e-8, rtol=0)
-    np.testing.assert_allclose(s[:, 0], s_ref, atol=1e-8, rtol=0)
+    X = rng.uniform(-1.5, 1.5, (15, 2))
+    z = np.sin(2 * X[:, 0]) + 0.3 * X[:, 1] + rng.normal(0, 0.05, 15)
+    theta = np.log([0.8, 1.7, 0.02])
+    gp = ComponentGP(small_sample=False).fit(X, z, thetas=[theta], weights=[1.0])
+    _, _, _, beta, _, s2, _ = gp._terms(theta, X, z)
+    sigma2 = s2 / 15
+    kernel = ConstantKernel(sigma2, "fixed") * Matern(np.exp(theta[:2]), "fixed", nu=2.5) + WhiteKernel(sigma2 * 0.02, "fixed")
+    ref = GaussianProcessRegressor(kernel, optimizer=None, normalize_y=False, alpha=1e-10 * sigma2).fit(X, z - beta)
+    Xq = rng.uniform(-2.0, 2.0, (20, 2))
+    m_ref, s_ref = ref.predict(Xq, return_std=True)
+    m, s = gp.predict(Xq)
+    np.testing.assert_allclose(m, m_ref + beta, atol=1e-8, rtol=0)
+    np.testing.assert_allclose(s, s_ref, atol=1e-8, rtol=0)
 
 
-def test_small_sample_correction_matches_bayesian_emulator_formula():
+def test_small_sample_quantiles_are_the_bayesian_emulators_student_t():
     # Bayesian GP emulator with a constant mean (flat prior) and an unknown variance (Jeffreys prior)
-    # (Oakley & O'Hagan 2002, Biometrika; Conti & O'Hagan 2010; from memory), at sklearn's fitted kernel K:
-    # σ̂² = (y − β̂)ᵀK⁻¹(y − β̂)/(n − 1), var = σ̂²[k** − k*ᵀK⁻¹k* + (1 − 1ᵀK⁻¹k*)²/1ᵀK⁻¹1], Student-t with
-    # n − 1 dof widened to the Gaussian of the same 90 % interval (quantiles from scipy.stats). Written out
-    # here with plain numpy solves, independently of the emulator's Cholesky route.
-    from scipy.stats import norm, t as student_t
+    # (Oakley & O'Hagan 2002, Biometrika; Conti & O'Hagan 2010; from memory), at fixed correlation parameters:
+    # σ̂² = (y − β̂)ᵀK⁻¹(y − β̂)/(n − 1), scale² = σ̂²[k** − k*ᵀK⁻¹k* + (1 − 1ᵀK⁻¹k*)²/1ᵀK⁻¹1], a Student-t with
+    # n − 1 dof. Written out with plain numpy solves; the emulator's quantiles must be scipy.stats.t's.
+    from scipy.stats import t as student_t
     rng = np.random.default_rng(3)
     X = rng.uniform(1.5, 5.5, (9, 1))
     y = np.sin(X[:, 0]) + rng.normal(0, 0.2, 9)
-    em = PathwayEmulator(physics_mean=False, max_components=1, n_restarts_optimizer=0).fit(X, y[:, None])
-    plain = PathwayEmulator(physics_mean=False, max_components=1, n_restarts_optimizer=0,
-                            small_sample_correction=False).fit(X, y[:, None])
-    gp = em.gps_[0]
+    em = PathwayEmulator(physics_mean=False, max_components=1).fit(X, y[:, None])
     Xs = em._standardise(X)
-    K = gp.kernel_(Xs) + gp.alpha * np.eye(9)
-    z = gp.y_train_
+    theta = np.log([0.9, 0.05])
+    z = em.scores_[:, 0]
+    em.gps_[0] = ComponentGP().fit(Xs, z, thetas=[theta], weights=[1.0])
+    K = correlation(Xs, Xs, 0.9) + (0.05 + 1e-10) * np.eye(9)
     one = np.ones(9)
     beta = one @ np.linalg.solve(K, z) / (one @ np.linalg.solve(K, one))
     sigma2 = (z - beta) @ np.linalg.solve(K, z - beta) / 8
     Xq = np.array([[1.0], [3.0], [6.5]])
     Xqs = em._standardise(Xq)
-    ks = gp.kernel_(Xqs, Xs)
-    inner = gp.kernel_.diag(Xqs) - np.einsum("ij,ji->i", ks, np.linalg.solve(K, ks.T))
+    ks = correlation(Xqs, Xs, 0.9)
+    loc = beta + ks @ np.linalg.solve(K, z - beta)
+    inner = 1.05 - np.einsum("ij,ji->i", ks, np.linalg.solve(K, ks.T))
     inner += (1 - ks @ np.linalg.solve(K, one)) ** 2 / (one @ np.linalg.solve(K, one))
-    expected = gp._y_train_std * np.sqrt(sigma2 * inner) * student_t.ppf(0.95, 8) / norm.ppf(0.95)
-    mean, sd = em.predict(Xq, return_std=True)
-    # the emulator's component direction is ±1 for one year: sd is the component's sd
-    np.testing.assert_allclose(sd[:, 0], expected, rtol=1e-8)
-    np.testing.assert_allclose(mean, plain.predict(Xq), rtol=1e-12)  # the mean is the plug-in GP's
-    assert np.all(sd > plain.predict(Xq, return_std=True)[1])
+    scale = np.sqrt(sigma2 * inner)
+    sign = em.components_[0, 0]  # the one-year component is ±1
+    p = np.array([0.01, 0.05, 0.17, 0.5, 0.83, 0.95, 0.99])
+    expected = em.residual_mean_[0] + sign * student_t.ppf(p[None, :] * (sign > 0) + (1 - p[None, :]) * (sign < 0), 8,
+                                                           loc[:, None], scale[:, None])
+    np.testing.assert_allclose(em.quantiles(Xq, p)[:, :, 0], expected, rtol=1e-8)
+    # and the sd is the t's: scale √(ν/(ν − 2))
+    np.testing.assert_allclose(em.predict(Xq, return_std=True)[1][:, 0], scale * np.sqrt(8 / 6), rtol=1e-8)
 
 
 def test_small_sample_correction_pure_noise_is_prediction_interval():
     # Limit of no signal: a new draw from a normal sample of n has the prediction interval
     # ȳ ± t_0.95,n−1 s √(1 + 1/n) (textbook, e.g. Hahn & Meeker 1991, "Statistical Intervals", from memory).
-    from scipy.stats import norm, t as student_t
+    from scipy.stats import t as student_t
     X = np.linspace(2.0, 5.0, 10)[:, None]
     y = np.array([0.3, -0.5, 0.1, 0.4, -0.2, -0.3, 0.5, -0.1, 0.2, -0.4])  # no trend in X
-    em = PathwayEmulator(physics_mean=False, max_components=1, n_restarts_optimizer=0).fit(X, y[:, None])
-    amplitude = em.gps_[0].kernel_.k1.k1.constant_value
-    assert amplitude < 1e-2  # the fit found no signal (premise of the limit)
-    _, sd = em.predict([[3.3]], return_std=True)
-    expected = y.std(ddof=1) * np.sqrt(1 + 1 / 10) * student_t.ppf(0.95, 9) / norm.ppf(0.95)
-    assert sd[0, 0] == pytest.approx(expected, rel=0.02)
+    em = PathwayEmulator(physics_mean=False, max_components=1).fit(X, y[:, None])
+    half = y.std(ddof=1) * np.sqrt(1 + 1 / 10) * student_t.ppf(0.95, 9)
+    # the posterior over (ℓ, η) keeps some weight on a weak signal (the nugget prior's median is 0.1), so the
+    # interval is a little narrower than the no-signal limit
+    q = em.quantiles([[3.3]], [0.05, 0.95])[0, :, 0]
+    assert 0.85 * half < (q[1] - q[0]) / 2 <= 1.02 * half
+    # the limit itself: all nugget (η → ∞) gives the textbook interval
+    em.gps_[0] = ComponentGP().fit(em._standardise(X), em.scores_[:, 0], thetas=[np.log([1.0, 1e8])], weights=[1.0])
+    q = em.quantiles([[3.3]], [0.05, 0.95])[0, :, 0]
+    assert (q[1] - q[0]) / 2 == pytest.approx(half, rel=1e-6)
 
 
 def test_doubled_co2_at_ecs_3_approaches_3_kelvin():
@@ -117,8 +125,10 @@ def test_no_feedback_case_gives_about_1_2_kelvin():
 
 
 def test_variance_adds_up_and_sampling_agrees():
-    # Bookkeeping (common practice, no source): predictive variance = Σ σ_j² v_j² + truncation + internal,
+    # Bookkeeping (common practice, no source): predictive variance = Σ sd_j² v_j² + basis error + internal,
     # and sampled pathways reproduce the predicted mean and sd.
+    from sensemble.emulator.gp import t_sd_factor
+    from sensemble.emulator.smoothing import response_smoother
     ecs = np.linspace(2.0, 5.0, 10)
     Y = step_ensemble(ecs, 80, noise=0.1, seed=2)
     iv = (0.1, 0.5)
@@ -128,16 +138,20 @@ def test_variance_adds_up_and_sampling_agrees():
     assert "single realisation" in em.prediction_target_
     mean, sd = em.predict([[3.2]], return_std=True)
     mu, s = em.component_predictions([[3.2]])
-    expected = (s ** 2) @ em.components_ ** 2 + em.truncation_variance_ + iv[0] ** 2
+    expected = ((s * t_sd_factor(em.dof_)) ** 2) @ em.components_ ** 2 + em.truncation_variance_ + em.internal_variance_
     np.testing.assert_allclose(sd[0] ** 2, expected[0], rtol=1e-12)
     paths = em.sample_paths([[3.2]], 20000, random_state=1)
     np.testing.assert_allclose(paths[0].mean(0), mean[0], atol=4 * sd.max() / np.sqrt(20000))
     np.testing.assert_allclose(paths[0].std(0), sd[0], rtol=0.05)
     # the sd of the last-10-year mean, split into forced and internal parts, adds up to the sampled one; the
-    # internal part is an AR(1) 10-year mean: σ² Σ_s Σ_t φ^|s−t| / 100 (textbook, computed by hand here)
+    # internal part is the AR(1) noise (Σ_st = σ² φ^|s−t|, textbook) less what the smoother S keeps:
+    # aᵀΣa with a = (I − S)ᵀ w, w = 1/10 on the last ten years (computed by hand here)
     forced, internal = em.spread_of_mean([[3.2]], 10)
-    ar1_decade = 0.1 ** 2 * sum(0.5 ** abs(a - b) for a in range(10) for b in range(10)) / 100
-    assert internal[0] == pytest.approx(np.sqrt(ar1_decade), rel=1e-12)
+    S = response_smoother(np.full(80, 3.71))
+    w = np.r_[np.zeros(70), np.full(10, 0.1)]
+    a = (np.eye(80) - S).T @ w
+    cov = 0.1 ** 2 * 0.5 ** np.abs(np.subtract.outer(np.arange(80), np.arange(80)))
+    assert internal[0] == pytest.approx(np.sqrt(a @ cov @ a), rel=1e-9)
     total = np.hypot(forced[0], internal[0])
     assert paths[0, :, -10:].mean(axis=1).std() == pytest.approx(total, rel=0.05)
 

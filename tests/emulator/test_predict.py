@@ -44,15 +44,52 @@ def test_crossing_years_of_known_ramps():
     assert np.isnan(crossing_years(0.5 * ramp[None], years, 3.0, window=20)[0])
 
 
-def test_point_case_quantiles_are_gaussian_and_flags(fitted):
-    # Quantiles of a point case: mean + z_q sd with z from scipy.stats.norm (reference library).
+def test_crossing_of_a_line_is_not_half_a_year_late():
+    # Convention (predict.crossing_years): a centred running mean of a straight line equals the line at the
+    # window's centre (common practice, no source), so a line reaching the threshold at 50.5 is dated 50.5.
+    years = np.arange(1, 151)
+    line = 0.03 * (years - 50.5) + 1.5
+    for window in (1, 10, 20, 21):
+        assert crossing_years(line[None], years, 1.5, window=window)[0] == pytest.approx(50.5, abs=1e-9)
+    assert crossing_years(line[None], years, 1.5 + 0.03 * 0.2, window=20)[0] == pytest.approx(50.7, abs=1e-9)
+
+
+def test_asymmetric_likely_range_is_hit_at_both_ends():
+    # An asymmetric likely range: the quantile function gives median, 17 % and 83 % exactly (to 1e-3 K, issue 10),
+    # and 200 000 samples reach them within sampling error; a lognormal matched on log width would miss
+    # (its 17/83 % are 2.37/3.79 for 3.0:2.5-4.0, scipy.stats.lognorm, reference library).
+    from sensemble.emulator.predict import likely_range_quantiles
+    np.testing.assert_allclose(likely_range_quantiles(3.0, (2.5, 4.0), [0.17, 0.5, 0.83]), [2.5, 3.0, 4.0], atol=1e-3)
+    x = lognormal_samples(3.0, (2.5, 4.0), 200000, np.random.default_rng(0))
+    np.testing.assert_allclose(np.quantile(x, [0.17, 0.5, 0.83]), [2.5, 3.0, 4.0], rtol=0.01)
+    assert np.mean(x > 4.0) == pytest.approx(0.17, abs=0.005)
+    s_log = (np.log(4.0) - np.log(2.5)) / (norm.ppf(0.83) - norm.ppf(0.17))
+    assert lognorm(s_log, scale=3.0).ppf(0.17) == pytest.approx(2.37, abs=0.01)
+
+
+def test_distribution_case_reports_achieved_quantiles(fitted):
+    em, X = fitted
+    case = case_from_mapping({"name": "skewed", "distribution": "lognormal", "median": 3.0, "likely": [2.5, 4.0]},
+                             ("ecs_eff",), 4000, np.random.default_rng(2))
+    pred = predict_cases(em, [case], training_X=X, years=YEARS, n_samples=100, random_state=0)
+    row = pred.input_quantiles.iloc[0]
+    assert row["case"] == "skewed" and row["requested_q83"] == 4.0 and row["n_samples"] == 4000
+    assert row["achieved_q17"] == pytest.approx(2.5, rel=0.03) and row["achieved_q83"] == pytest.approx(4.0, rel=0.03)
+
+
+def test_point_case_quantiles_are_the_student_t_and_flags(fitted):
+    # Quantiles of a point case are the emulator's Student-t quantiles (tested against scipy.stats.t in
+    # test_gp.py), not a Gaussian matched at 90 %: the median is the mean, and at equal sd a t's 17–83 % band is
+    # narrower than the Gaussian's (scipy.stats.norm, reference library).
     em, X = fitted
     cases = [point_case({"ecs_eff": 3.3}), point_case({"ecs_eff": 6.0})]
     pred = predict_cases(em, cases, training_X=X, years=YEARS, n_samples=500, random_state=0)
     ds = pred.dataset
     q = ds["warming_quantile"].sel(case="ecs_eff=3.3").values
     mean, sd = ds["mean"].sel(case="ecs_eff=3.3").values, ds["sd"].sel(case="ecs_eff=3.3").values
-    np.testing.assert_allclose(q, mean + norm.ppf([0.05, 0.17, 0.5, 0.83, 0.95])[:, None] * sd, rtol=1e-12)
+    np.testing.assert_allclose(q, em.quantiles([[3.3]], [0.05, 0.17, 0.5, 0.83, 0.95])[0], rtol=1e-12)
+    np.testing.assert_allclose(q[2], mean, rtol=1e-12)
+    assert np.all(q[3, 5:] - q[1, 5:] < (norm.ppf(0.83) - norm.ppf(0.17)) * sd[5:])
     assert list(ds["flags"].values) == ["", "extrapolated"]
     table = pred.pathways_table()
     assert list(table.columns) == ["case", "ecs_eff", "year", "mean", "sd", "q05", "q17", "q50", "q83", "q95", "flags"]

@@ -21,6 +21,11 @@ HAC, its usual bandwidth ⌊4 (n/100)^(2/9)⌋) and the delta-method interval ar
 measured and rejected.
 
 Run: python tests/benchmarks/bench_coverage.py [--quick]
+
+Last measured (400 trials per lag, load ~10 on 2 cores, 244 s), coverage of the nominal 90 %, before → after:
+feedback ± 1.645 se 0.58 → 0.89 (lag-1 0.5), 0.36 → 0.90 (0.8); ecs_eff interval 0.80 → 0.90 (tails 2.8 / 7.2 %),
+0.71 → 0.91 (4.0 / 4.8 %); ecs_late interval (new) 0.87 (2.5 / 10.5 %), 0.91 (2.5 / 6.2 %); 12 trials through
+`sensemble extract` match the direct path to 6e-6 K.
 """
 from __future__ import annotations
 

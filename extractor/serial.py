@@ -20,6 +20,7 @@ years they recover only part of the long-run variance at ρ = 0.8 (see the bench
 """
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass
 
 import numpy as np
@@ -29,7 +30,7 @@ from scipy.optimize import brentq
 #: noise in a climate run (common practice, no source), and ρ → 1 makes every variance infinite
 MAX_LAG1 = 0.95
 #: residual series longer than this (long controls) take the O(1/n) bias correction instead of the exact one
-EXACT_UP_TO = 1000
+EXACT_UP_TO = 600
 
 
 @dataclass(frozen=True)
@@ -55,6 +56,21 @@ def _lag_sums(matrix: np.ndarray) -> np.ndarray:
     return np.bincount(lags.ravel(), weights=matrix.ravel(), minlength=n)
 
 
+@functools.lru_cache(maxsize=32)
+def _design_sums(design_bytes: bytes, n: int, p: int) -> tuple[np.ndarray, np.ndarray]:
+    """Lag sums of M and MAM for a design (cached: every fit against one control shares its design)."""
+    design = np.frombuffer(design_bytes, dtype=np.float64).reshape(n, p)
+    q, _ = np.linalg.qr(design)
+    # M = I − QQᵀ and MAM expanded so that nothing costs more than O(n² p)
+    qa = np.zeros_like(q)  # A Q: each row the sum of its neighbours' rows
+    qa[1:] += q[:-1]
+    qa[:-1] += q[1:]
+    m_sums = _lag_sums(np.eye(n) - q @ q.T)
+    shift = np.eye(n, k=1)
+    mam = shift + shift.T - q @ qa.T - qa @ q.T + q @ (q.T @ qa) @ q.T
+    return m_sums, _lag_sums(mam)
+
+
 def estimate_ar1(residuals, design: np.ndarray) -> AR1Noise:
     """AR(1) parameters of the errors behind ``residuals`` of a least-squares fit on ``design``.
 
@@ -75,15 +91,7 @@ def estimate_ar1(residuals, design: np.ndarray) -> AR1Noise:
         # with its mean removed (Kendall 1954, from memory)
         rho = float(np.clip((n * observed + 1.0) / (n - 3.0), 0.0, MAX_LAG1))
         return AR1Noise(sd=float(np.sqrt(ssr / (n - p))), lag1=rho)
-    q, _ = np.linalg.qr(design)
-    # M = I − QQᵀ and MAM expanded so that nothing costs more than O(n² p)
-    qa = np.zeros_like(q)  # A Q: each row the sum of its neighbours' rows
-    qa[1:] += q[:-1]
-    qa[:-1] += q[1:]
-    m_sums = _lag_sums(np.eye(n) - q @ q.T)
-    shift = np.eye(n, k=1)
-    mam = shift + shift.T - q @ qa.T - qa @ q.T + q @ (q.T @ qa) @ q.T
-    b_sums = _lag_sums(mam)
+    m_sums, b_sums = _design_sums(design.tobytes(), n, p)
     powers_of = lambda rho: rho ** np.arange(n)  # noqa: E731
 
     def expected_ratio(rho: float) -> float:

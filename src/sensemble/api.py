@@ -83,7 +83,8 @@ def extract(archive: str | os.PathLike, out: str | os.PathLike | None = None, *,
     Parameters
     ----------
     archive : str or path
-        Folder of the archive: a CMIP data-reference-syntax tree or a flat folder of NetCDF files.
+        The archive: a folder (CMIP data-reference-syntax tree or flat; NetCDF files or Zarr stores), or an ESM
+        catalogue's ``.json`` file.
     out : str or path, optional
         Where ``sensitivity.csv``/``.nc``, ``series/``, ``report.md`` and ``figures/`` go. None: a temporary folder
         that lives as long as the returned result. A rerun into the same folder reuses finished models.
@@ -116,7 +117,7 @@ def extract(archive: str | os.PathLike, out: str | os.PathLike | None = None, *,
     >>> result.table[["model", "member"]].values.tolist()
     [['Alder-2', 'r1i1p1f1'], ['Alder-2', 'r2i1p1f1']]
     >>> sorted(result.series["Alder-2", "r1i1p1f1"])
-    ['1pctCO2', 'abrupt-4xCO2', 'demo-rise', 'piControl']
+    ['1pctCO2', 'abrupt-4xCO2', 'demo-rise', 'demo-steady', 'piControl']
     >>> float(result.series["Alder-2", "r1i1p1f1"]["abrupt-4xCO2"].tas.isel(year=-1)) > 1.0
     True
     >>> sensemble.extract(root / "archive", drift_order=3)
@@ -127,8 +128,10 @@ def extract(archive: str | os.PathLike, out: str | os.PathLike | None = None, *,
     config = config_from_dict(_settings_for(("extraction",), settings, "extract()"), source="extract()",
                               check_paths=False)
     archive = Path(archive)
-    if not archive.is_dir():
-        raise ConfigError(f"extract(): archive {archive} is not a folder — give the folder that holds the models")
+    if not (archive.is_dir() or (archive.is_file() and archive.suffix == ".json")):
+        what = "is not a folder or a catalogue (.json)" if archive.exists() else "does not exist"
+        raise ConfigError(f"extract(): archive {archive} {what} — give the folder that holds the models "
+                          "(NetCDF files or Zarr stores) or an ESM catalogue's .json file")
     from sensemble.extractor.pipeline import extract as extract_batch
 
     folder = tempfile.TemporaryDirectory(prefix="sensemble-") if out is None else None
@@ -206,8 +209,8 @@ def emulate(source: "ExtractionResult | str | os.PathLike", out: str | os.PathLi
     ...     years={"control": 60, "abrupt": 40, "onepct": 20, "historical": 10, "scenario": 20})
     >>> extraction = sensemble.extract(root / "archive", fit_years=(1, 40), early_years=(1, 10),
     ...     late_years=(11, 40), bootstrap_samples=100, figures=False)
-    >>> result = sensemble.emulate(extraction, cases=[{"name": "mid", "ecs_eff": 3.0}], validate=False,
-    ...                            figures=False)
+    >>> result = sensemble.emulate(extraction, scenario="demo-rise", cases=[{"name": "mid", "ecs_eff": 3.0}],
+    ...                            validate=False, figures=False)
     >>> pathways = result.prediction.pathways_table()
     >>> sorted(set(pathways["case"]))
     ['mid']

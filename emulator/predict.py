@@ -23,8 +23,9 @@ from scipy.stats import norm
 
 from .errors import EmulatorInputError
 
-__all__ = ["Case", "point_case", "lognormal_case", "lognormal_samples", "likely_range_quantiles", "samples_file_case", "grid_cases",
-           "default_cases", "case_from_mapping", "parse_point", "parse_distribution", "predict_cases", "Prediction", "crossing_years"]
+__all__ = ["Case", "point_case", "lognormal_case", "lognormal_samples", "likely_range_quantiles", "samples_file_case",
+           "grid_cases", "default_cases", "case_from_mapping", "prediction_cases", "parse_point", "parse_distribution",
+           "predict_cases", "Prediction", "crossing_years"]
 
 LIKELY = (0.17, 0.83)  # the "likely" range as the 17–83 % quantiles
 INPUT_QUANTILE_COLUMNS = ["case", "input", "n_samples", "requested_q17", "requested_q50", "requested_q83",
@@ -192,6 +193,20 @@ def case_from_mapping(spec: dict, inputs, n_samples: int, rng) -> Case:
         except KeyError as exc:
             raise EmulatorInputError(f"lognormal case needs {exc.args[0]!r}") from None
     return point_case(spec, name)
+
+
+def prediction_cases(prediction, X, models, inputs, rng) -> list[Case]:
+    """The cases a `PredictionSettings` asks for: its cases and grid, and the ensemble's own gaps
+    (`default_cases`) when there are no others or `include_default_cases`; names must not repeat."""
+    cases = [case_from_mapping(spec, inputs, prediction.n_samples, rng) for spec in prediction.cases]
+    if prediction.grid:
+        cases += grid_cases(prediction.grid)
+    if not cases or prediction.include_default_cases:
+        cases = default_cases(X, models, inputs) + cases
+    names = [c.name for c in cases]
+    if len(set(names)) != len(names):
+        raise EmulatorInputError(f"case names repeat: {', '.join(sorted({n for n in names if names.count(n) > 1}))}")
+    return cases
 
 
 def crossing_years(paths, years, threshold: float, window: int = 20):

@@ -22,7 +22,7 @@ from .atomic import atomic_path, write_csv
 from .ensemble import EnsembleEmulator
 from .errors import EmulatorInputError
 from .persist import save_emulator
-from .predict import case_from_mapping, default_cases, grid_cases, predict_cases
+from .predict import predict_cases, prediction_cases
 from .settings import EmulatorSettings, PredictionSettings
 from .training import TrainingSet, load_training_set
 from .validate import END_YEARS, leave_one_model_out, validation_table
@@ -43,19 +43,7 @@ class EmulationResult:
     notes: list[str] = field(default_factory=list)
 
 
-def _cases(prediction: PredictionSettings, ts: TrainingSet, rng):
-    cases = [case_from_mapping(spec, ts.inputs, prediction.n_samples, rng) for spec in prediction.cases]
-    if prediction.grid:
-        cases += grid_cases(prediction.grid)
-    if not cases or prediction.include_default_cases:
-        cases = default_cases(ts.X, ts.models, ts.inputs) + cases
-    names = [c.name for c in cases]
-    if len(set(names)) != len(names):
-        raise EmulatorInputError(f"case names repeat: {', '.join(sorted({n for n in names if names.count(n) > 1}))}")
-    return cases
-
-
-def _write_netcdf(ds, path, scenario):
+def write_pathways_netcdf(ds, path, scenario):
     """`pathways.nc`, CF-1.11 clean (the IOOS checker's `cf:1.11` suite reports nothing; tests/test_cf_outputs.py).
 
     CF §1.3 and §2.5.1: a coordinate variable is numeric, strictly monotonic and has no `_FillValue`; so names
@@ -138,13 +126,13 @@ def emulate(extract_dir, out_dir, settings: EmulatorSettings = EmulatorSettings(
 
     say("predicting")
     rng = np.random.default_rng(prediction.random_state)
-    cases = _cases(prediction, ts, rng)
+    cases = prediction_cases(prediction, ts.X, ts.models, ts.inputs, rng)
     result = predict_cases(
         emulator, cases, training_X=ts.X, years=ts.years, calendar_years=ts.calendar_years,
         thresholds=prediction.thresholds, quantiles=prediction.quantiles, n_samples=prediction.n_samples,
         crossing_window=prediction.crossing_window, random_state=rng)
     files.append(write_csv(result.pathways_table(), out_dir / "pathways.csv"))
-    files.append(_write_netcdf(result.dataset, out_dir / "pathways.nc", ts.scenario))
+    files.append(write_pathways_netcdf(result.dataset, out_dir / "pathways.nc", ts.scenario))
     files.append(write_csv(result.crossings, out_dir / "crossings.csv"))
     if len(result.input_quantiles):
         files.append(write_csv(result.input_quantiles, out_dir / "input_distributions.csv"))

@@ -25,11 +25,14 @@ from typing import Callable
 import numpy as np
 import pandas as pd
 
+from sensemble.contract.names import safe_name
+
 from .atomic import write_csv
 from .ensemble import EnsembleEmulator, calibrate_runs
 from .errors import EmulatorInputError
 from .parameter_pathways import ParameterPathwayEmulator
-from .predict import Case, case_from_mapping, default_cases, grid_cases, point_case, predict_cases
+from .predict import Case, point_case, predict_cases, prediction_cases
+from .run import write_pathways_netcdf
 from .settings import EmulatorSettings, PredictionSettings
 from .training import available_scenarios, load_physics_set, load_training_set
 from .validate import leave_one_model_out, validation_table
@@ -113,15 +116,6 @@ def _parameter_route(settings: EmulatorSettings, **forcing) -> ParameterPathwayE
                                     **forcing)
 
 
-def _cases(prediction: PredictionSettings, X, models, inputs, rng) -> list[Case]:
-    cases = [case_from_mapping(spec, inputs, prediction.n_samples, rng) for spec in prediction.cases]
-    if prediction.grid:
-        cases += grid_cases(prediction.grid)
-    if not cases or prediction.include_default_cases:
-        cases = default_cases(X, models, inputs) + cases
-    return cases
-
-
 def _crossing_cases(X, inputs) -> list[Case]:
     """Point cases along ECS (`CROSSING_ECS`), other inputs at the ensemble's median."""
     median = np.median(X, axis=0)
@@ -153,7 +147,7 @@ def emulate_pathways(extract_dir, out_dir, settings: EmulatorSettings, predictio
     inputs = tuple(settings.inputs)
     physics = load_physics_set(extract_dir, inputs)
     say(f"two-layer calibration of {physics.n_runs} runs of {len(set(physics.models))} models")
-    files, pathways, crossings, by_ecs, validation, rows = [], [], [], [], [], []
+    files, pathways, crossings, by_ecs, validation, rows, datasets = [], [], [], [], [], [], {}
     rng = np.random.default_rng(prediction.random_state)
     calibration = calibrate_runs(physics, efficacy=settings.efficacy)  # every run's, whatever its scenarios
     for spec in specs:
@@ -203,11 +197,12 @@ def emulate_pathways(extract_dir, out_dir, settings: EmulatorSettings, predictio
             years = calendar = emulator.scenario_.years
             forcing_source = emulator.scenario_.source
         say(f"  predicting with the {route} route")
-        result = predict_cases(emulator, _cases(prediction, X, models, inputs, rng), training_X=X, years=years,
+        result = predict_cases(emulator, prediction_cases(prediction, X, models, inputs, rng), training_X=X, years=years,
                                calendar_years=calendar, thresholds=prediction.thresholds,
                                quantiles=prediction.quantiles, n_samples=prediction.n_samples,
                                crossing_window=prediction.crossing_window, random_state=rng)
         pathways.append(_keyed(result.pathways_table(), spec.name, route))
+        datasets[spec.name] = result.dataset.assign_attrs(route=route, forcing=forcing_source)
         crossings.append(_keyed(result.crossings, spec.name, route))
         if "ecs_eff" in inputs:
             along = predict_cases(emulator, _crossing_cases(X, inputs), training_X=X, years=years,
@@ -238,6 +233,8 @@ def emulate_pathways(extract_dir, out_dir, settings: EmulatorSettings, predictio
     tables["calibration.csv"] = calibration
     for name, table in tables.items():
         files.append(write_csv(table, out_dir / name))
+    for name, dataset in datasets.items():  # the CF form of each scenario's pathways
+        files.append(write_pathways_netcdf(dataset, out_dir / f"pathways_{safe_name(name)}.nc", name))
     if prediction.figures:
         from .scenario_figures import crossing_ecs_figure, routes_figure, scenarios_figure
 

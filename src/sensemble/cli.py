@@ -224,6 +224,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--distribution", action="append", default=[], metavar="NAME=MEDIAN:LOW-HIGH|FILE.csv",
                    help="lognormal input through a median and a likely (17–83 %%) range, e.g. ecs_eff=3.0:2.5-4.0, "
                         "or a CSV file of input samples (repeatable)")
+    p.add_argument("--pathway", action="append", default=[], metavar="EXP|forcing_file=F|co2_file=F[,route=R,name=N]",
+                   help="a scenario to emulate, repeatable: an experiment of the archive, a forcing file (W m-2 by "
+                        "year) or a CO2 file (ppm by year); route auto, gp or parameters. Several make one batch")
     p.add_argument("--quiet", action="store_true", help="no progress on the terminal (the log file is still written)")
 
     p = sub.add_parser("run", help="a whole batch as a TOML config says: extraction, then emulation")
@@ -359,7 +362,8 @@ def cmd_demo(args, console: Console) -> int:
                       "forcing_f2x": demo_ensemble.REFERENCE_F2X}
                      if spec.get("experiment") in demo_ensemble.SCENARIOS and not spec.get("forcing_file") else spec
                      for spec in config.emulator.pathways)
-    pathways += ({"name": "user-overshoot", "forcing_file": str(out.resolve() / "user_forcing.csv")},)
+    pathways += ({"name": "user-overshoot", "forcing_file": str(out.resolve() / "user_forcing.csv"),
+                  "forcing_f2x": demo_ensemble.REFERENCE_F2X},)
     config = merge_overrides(config, archive=str(out / "archive"), out=str(out), workers=args.workers,
                              force=args.force or None, quiet=args.quiet or None, pathways=pathways,
                              check_paths=False)
@@ -426,6 +430,25 @@ def _cases(args) -> list[dict]:
     return cases
 
 
+def _pathway(text: str) -> dict:
+    """--pathway text → a pathway table: 'demo-rise', 'forcing_file=plan.csv,name=plan', 'co2_file=c.csv'."""
+    if "=" not in text:
+        return {"experiment": text.strip()}
+    spec = {}
+    for part in filter(None, (p.strip() for p in text.split(","))):
+        key, sep, value = part.partition("=")
+        if not sep or not value:
+            raise UsageError(f"--pathway {text!r}: give EXP or KEY=VALUE[,KEY=VALUE], e.g. forcing_file=plan.csv")
+        key = key.strip()
+        spec[key] = str(Path(value).resolve()) if key.endswith("_file") else value.strip()
+        if key == "forcing_f2x":
+            try:
+                spec[key] = float(value)
+            except ValueError:
+                raise UsageError(f"--pathway {text!r}: forcing_f2x must be a number (W m-2)") from None
+    return spec
+
+
 def cmd_emulate(args, console: Console) -> int:
     from .config import load_config, merge_overrides
 
@@ -435,6 +458,8 @@ def cmd_emulate(args, console: Console) -> int:
         raise UsageError(f"--from {args.source}: {what} — give the output folder of `sensemble extract`")
     config = load_config(args.config, check_paths=False) if args.config else _default_config()
     overrides = {"out": args.out, "scenario": args.scenario, "quiet": args.quiet or None}
+    if args.pathway:
+        overrides["pathways"] = tuple(_pathway(text) for text in args.pathway)
     cases = _cases(args)
     if cases:
         overrides["cases"] = cases

@@ -55,6 +55,10 @@ def test_outputs_are_keyed_by_scenario_and_route(batch):
                  "figures/crossing_ecs.png", "figures/scenarios.png", "figures/validation_routes.png"):
         assert (out / name).exists(), name
     assert "route" in format_pathways_summary(summary)
+    # the CF form of each scenario's pathways, whole length, with the route that produced it
+    import xarray as xr
+    with xr.open_dataset(out / "pathways_user.nc") as ds:
+        assert ds.sizes["year"] == 251 and ds.attrs["route"] == "parameters" and ds.attrs["scenario"] == "user"
 
 
 def test_both_routes_validated_and_the_better_one_chosen(batch):

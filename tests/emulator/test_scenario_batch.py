@@ -2,10 +2,13 @@
 import numpy as np
 import pandas as pd
 import pytest
+from compliance_checker.runner import CheckSuite
 
 from sensemble.emulator.errors import EmulatorInputError
 from sensemble.emulator.scenario_batch import emulate_pathways, format_pathways_summary, pathway_specs
 from sensemble.emulator.settings import EmulatorSettings, PredictionSettings
+
+from tests.test_cf_outputs import assert_cf_clean
 
 from .synthetic import SCENARIO, write_extract_dir
 
@@ -101,3 +104,14 @@ def test_bad_specs_are_one_line(tmp_path):
         pathway_specs([{"experiment": "nope"}], {"scen-rise": 3})
     with pytest.raises(EmulatorInputError, match="route 'fast'"):
         pathway_specs([{"experiment": "scen-rise", "route": "fast"}])
+
+
+def test_each_scenarios_netcdf_is_cf_clean(batch):
+    # source: the IOOS compliance checker, suite cf:1.11 — no error, no warning (tests/test_cf_outputs.py)
+    out, _ = batch
+    suite = CheckSuite()
+    suite.load_all_available_checkers()
+    files = sorted(out.glob("pathways_*.nc"))
+    assert len(files) == 4
+    for path in files:
+        assert_cf_clean(suite, path)

@@ -24,7 +24,7 @@ from scipy.optimize import minimize_scalar
 from .ebm import TwoLayerParameters
 from .errors import EmulatorInputError
 
-__all__ = ["calibrate_two_layer", "CalibrationDiagnostics", "SLOW_YEARS", "FAST_YEARS"]
+__all__ = ["calibrate_two_layer", "deep_temperature", "CalibrationDiagnostics", "SLOW_YEARS", "FAST_YEARS"]
 
 SLOW_YEARS = (30, 150)  # Geoffroy et al. (2013a): the slow mode dominates after ~30 years
 FAST_YEARS = (1, 10)  # ... and the fast mode is read from the first decade
@@ -83,7 +83,7 @@ def _capacities(lam, tau_f, tau_s, amp_f, amp_s):
     return c, cd, gam
 
 
-def _deep_temperature(tas, deep_heat_capacity, exchange):
+def deep_temperature(tas, deep_heat_capacity, exchange):
     """Yearly means of T_d driven by the given upper-layer series (held constant within each year)."""
     tau = deep_heat_capacity / exchange
     decay = np.exp(-1.0 / tau)
@@ -97,7 +97,7 @@ def _deep_temperature(tas, deep_heat_capacity, exchange):
 
 
 def calibrate_two_layer(tas, rtnt, efficacy: bool = False, *, slow_years=SLOW_YEARS, fast_years=FAST_YEARS,
-                        max_iter: int = 50, tol: float = 1e-8, return_diagnostics: bool = False):
+                        fit_years=None, max_iter: int = 50, tol: float = 1e-8, return_diagnostics: bool = False):
     """Two-layer parameters from the annual-mean anomalies of an abrupt-forcing run.
 
     Parameters
@@ -105,6 +105,7 @@ def calibrate_two_layer(tas, rtnt, efficacy: bool = False, *, slow_years=SLOW_YE
     tas : warming (K) for years 1, 2, … after the step
     rtnt : top-of-atmosphere imbalance N (W m-2), same years
     efficacy : fit the deep-ocean heat-uptake efficacy ε (Geoffroy et al. 2013b) instead of ε = 1
+    fit_years : (first, last) years of the Gregory regressions, as the sensitivity table's fit; None: all years
 
     Returns
     -------
@@ -118,8 +119,12 @@ def calibrate_two_layer(tas, rtnt, efficacy: bool = False, *, slow_years=SLOW_YE
     ok = np.isfinite(tas) & np.isfinite(rtnt)
     if not ok.all():
         raise EmulatorInputError("abrupt series has missing years")
-    # Gregory et al. (2004): N = F − λT
-    slope, forcing = np.polyfit(tas, rtnt, 1)
+    k = np.arange(1, len(tas) + 1)
+    window = np.ones(len(tas), bool) if fit_years is None else (k >= fit_years[0]) & (k <= fit_years[1])
+    if window.sum() < 10:
+        raise EmulatorInputError(f"fewer than 10 abrupt years in the Gregory window {tuple(fit_years)}")
+    # Gregory et al. (2004): N = F − λT, over the table's fit window
+    slope, forcing = np.polyfit(tas[window], rtnt[window], 1)
     lam = -slope
     if lam <= 0 or forcing <= 0:
         raise EmulatorInputError(f"Gregory fit gives F = {forcing:.2f} W m-2, λ = {lam:.2f} W m-2 K-1; not a stable response")
@@ -129,11 +134,11 @@ def calibrate_two_layer(tas, rtnt, efficacy: bool = False, *, slow_years=SLOW_YE
     if efficacy:
         converged = False
         for iterations in range(1, max_iter + 1):
-            deep = _deep_temperature(tas, cd_eff / eps, gam_eff / eps)
+            deep = deep_temperature(tas, cd_eff / eps, gam_eff / eps)
             uptake = (gam_eff / eps) * (tas - deep)
             # N = F − λT − (ε − 1) H, least squares in (F, λ, ε − 1)
-            design = np.column_stack([np.ones_like(tas), -tas, -uptake])
-            (forcing_new, lam_new, eps_m1), *_ = np.linalg.lstsq(design, rtnt, rcond=None)
+            design = np.column_stack([np.ones_like(tas), -tas, -uptake])[window]
+            (forcing_new, lam_new, eps_m1), *_ = np.linalg.lstsq(design, rtnt[window], rcond=None)
             eps_new = 1.0 + eps_m1
             if lam_new <= 0 or eps_new <= 0:
                 raise EmulatorInputError(f"efficacy fit diverged (λ = {lam_new:.3f}, ε = {eps_new:.3f})")

@@ -22,7 +22,7 @@ import numpy as np
 import pandas as pd
 from sklearn.base import BaseEstimator
 
-from .calibrate import calibrate_two_layer
+from .calibrate import calibrate_two_layer, deep_temperature
 from sensemble.contract.constraints import problem
 
 from .errors import EmulatorInputError
@@ -40,7 +40,8 @@ CALIBRATION_COLUMNS = ["model", "member", "lambda_", "heat_capacity", "deep_heat
 
 
 def calibrate_runs(ts: TrainingSet, efficacy: bool = False) -> pd.DataFrame:
-    """Two-layer parameters per run from its abrupt series; a run that cannot be calibrated gets a status, not a guess."""
+    """Two-layer parameters per run from its abrupt series, the Gregory step over the table's fit window; a run
+    that cannot be calibrated, or whose efficacy iteration does not converge, gets a status, not "ok"."""
     rows = []
     for i in range(ts.n_runs):
         row = dict(model=ts.models[i], member=ts.members[i])
@@ -49,11 +50,14 @@ def calibrate_runs(ts: TrainingSet, efficacy: bool = False) -> pd.DataFrame:
             rows.append({**row, "status": "no abrupt run"})
             continue
         try:
-            params, f4x = calibrate_two_layer(tas, rtnt, efficacy=efficacy)
+            params, f4x, diagnostics = calibrate_two_layer(tas, rtnt, efficacy=efficacy, fit_years=ts.fit_window(i),
+                                                           return_diagnostics=True)
         except EmulatorInputError as exc:
             rows.append({**row, "status": f"calibration failed: {exc}"})
             continue
-        rows.append({**row, **{k: float(v) for k, v in asdict(params).items()}, "forcing_4x": f4x, "status": "ok"})
+        status = "ok" if diagnostics.converged else \
+            f"efficacy not converged after {diagnostics.iterations} iterations (left out of the mean parameters)"
+        rows.append({**row, **{k: float(v) for k, v in asdict(params).items()}, "forcing_4x": f4x, "status": status})
     return pd.DataFrame(rows, columns=CALIBRATION_COLUMNS)
 
 
@@ -65,13 +69,13 @@ def per_model(ts: TrainingSet) -> tuple[np.ndarray, np.ndarray]:
     return X, Y
 
 
-def _mean_parameters(calibration: pd.DataFrame) -> dict:
+def _mean_parameters(calibration: pd.DataFrame, forcing_ratio: float = FORCING_RATIO) -> dict:
     ok = calibration[calibration["status"] == "ok"]
     if ok.empty:
         raise EmulatorInputError("no run could be calibrated, so the physics mean has no heat capacities",
                                  hint="check the abrupt runs, or set physics_mean = false")
     return {
-        "f2x": float(ok["forcing_4x"].median() / FORCING_RATIO),
+        "f2x": float(ok["forcing_4x"].median() / forcing_ratio),
         "heat_capacity": float(ok["heat_capacity"].median()),
         "deep_heat_capacity": float(ok["deep_heat_capacity"].median()),
         "exchange": float(ok["exchange"].median()),
@@ -152,12 +156,15 @@ class EnsembleEmulator(BaseEstimator):
         if tuple(ts.inputs) != tuple(self.inputs):
             raise EmulatorInputError(f"the training set's inputs {tuple(ts.inputs)} differ from the estimator's "
                                      f"{tuple(self.inputs)}", hint="load the training set with the same inputs")
-        self.notes_ = []
+        self.notes_ = ["forcing_ratio not in the series files: 2 assumed (erf_4x = 2 F2x)"] \
+            if "forcing_ratio_assumed" in ts.flags else []
+        self.forcing_ratio_ = ts.forcing_ratio
         self.calibration_ = calibrate_runs(ts, efficacy=self.efficacy)
         forcing = self.mean_parameters_ = None
         self.forcing_source_ = "none (physics mean off)"
         if self.physics_mean:
-            self.mean_parameters_ = _mean_parameters(self.calibration_)
+            self.mean_parameters_ = {**_mean_parameters(self.calibration_, ts.forcing_ratio),
+                                     "forcing_ratio": ts.forcing_ratio, "fit_years": ts.fit_window(0) or (1, 150)}
             forcing, self.forcing_source_ = self._scenario_forcing(ts, self.mean_parameters_["f2x"])
         self.forcing_ = forcing
         self.internal_variability_ = None
@@ -180,13 +187,23 @@ class EnsembleEmulator(BaseEstimator):
 
     def _scenario_forcing(self, ts: TrainingSet, f2x: float):
         if self.forcing_source == "diagnosed":
-            lam = -ts.table["feedback"].to_numpy(float) if "feedback" in ts.table else np.full(ts.n_runs, np.nan)
-            fallback = self.calibration_["lambda_"].to_numpy(float)
-            lam = np.where(np.isfinite(lam) & (lam > 0), lam, fallback)
+            cal = self.calibration_
+            uptake = None
+            if self.efficacy:
+                # N = F − λT − (ε − 1)γ(T − T_d): the calibrated λ and the uptake term, not the bent Gregory slope
+                lam = np.where(cal["status"] == "ok", cal["lambda_"].to_numpy(float), np.nan)
+                uptake = np.zeros_like(ts.Y)
+                for i in np.flatnonzero(np.isfinite(lam)):
+                    deep = deep_temperature(ts.Y[i], cal["deep_heat_capacity"].iloc[i], cal["exchange"].iloc[i])
+                    uptake[i] = (cal["efficacy"].iloc[i] - 1.0) * cal["exchange"].iloc[i] * (ts.Y[i] - deep)
+            else:
+                lam = -ts.table["feedback"].to_numpy(float) if "feedback" in ts.table else np.full(ts.n_runs, np.nan)
+                lam = np.where(np.isfinite(lam) & (lam > 0), lam, cal["lambda_"].to_numpy(float))
             usable = np.isfinite(lam) & (lam > 0)
             if not usable.any():
                 raise EmulatorInputError("no run has a feedback parameter to diagnose the forcing with")
-            f = diagnose_forcing(ts.Y[usable], ts.scenario_rtnt[usable], lam[usable], groups=ts.models[usable])
+            f = diagnose_forcing(ts.Y[usable], ts.scenario_rtnt[usable], lam[usable], groups=ts.models[usable],
+                                 uptake=None if uptake is None else uptake[usable])
             return f.values, f"diagnosed from {int(f.attrs['n_models'])} models (F = N + λT)"
         if self.forcing_source == "file":
             values, how = align_forcing(read_forcing_file(self.forcing_file), ts.years, ts.calendar_years)

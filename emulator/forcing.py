@@ -89,8 +89,11 @@ def read_forcing_file(path, variable: str | None = None) -> xr.DataArray:
     return _year_series(frame["year"].to_numpy(), frame[variable].to_numpy(float), path, variable)
 
 
-def diagnose_forcing(tas, rtnt, lambda_, groups=None) -> xr.DataArray:
+def diagnose_forcing(tas, rtnt, lambda_, groups=None, uptake=None) -> xr.DataArray:
     """Forcing diagnosed from scenario runs: F = N + λT per run (Forster et al. 2013, JGR), then averaged.
+
+    With efficacy, `uptake` (n_runs, n_years) = (ε − 1)γ(T − T_d) per run is added: the two-layer model's
+    N = F − λT − (ε − 1)γ(T − T_d) (Geoffroy et al. 2013b), with λ the calibrated one, not the Gregory slope.
 
     Sign: λ > 0 here (the Gregory table's `feedback` is −λ), so F = N + λT.
 
@@ -108,6 +111,8 @@ def diagnose_forcing(tas, rtnt, lambda_, groups=None) -> xr.DataArray:
     if np.any(lam <= 0):
         raise EmulatorInputError("λ must be > 0 (use −feedback from the sensitivity table)")
     per_run = rtnt_v + lam[:, None] * tas_v
+    if uptake is not None:
+        per_run = per_run + np.asarray(uptake, float)
     if groups is None:
         per_model = per_run
     else:

@@ -164,8 +164,9 @@ class PathwayEmulator(BaseEstimator):
         n, n_years = Y.shape
         self.X_train_, self.Y_train_ = X.copy(), Y.copy()
         if self.physics_mean:
+            extraction = {k: mean_params[k] for k in ("forcing_ratio", "fit_years") if mean_params.get(k) is not None}
             self.mean_model_ = PhysicsMean(n_years, forcing.copy(), *(float(mean_params[k]) for k in MEAN_PARAMETERS),
-                                           ecs_index=inputs.index("ecs_eff"))
+                                           ecs_index=inputs.index("ecs_eff"), **extraction)
         else:
             self.mean_model_ = PhysicsMean(n_years)
         self.x_mean_ = X.mean(axis=0)

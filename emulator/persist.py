@@ -91,7 +91,8 @@ def save_emulator(emulator: PathwayEmulator, path, metadata: dict | None = None)
         "history": history_line("sensemble emulate: fitted pathway emulator"),
         "parameters": json.dumps(_jsonable(emulator.get_params())),
         "mean_model": json.dumps({k: getattr(mm, k) for k in ("n_years", "f2x", "heat_capacity", "deep_heat_capacity",
-                                                              "exchange", "efficacy", "ecs_index")}),
+                                                              "exchange", "efficacy", "ecs_index",
+                                                              "forcing_ratio", "fit_years")}),
         "internal_variability": json.dumps(emulator.internal_variability_),
         "metadata": json.dumps(_jsonable(metadata or {})),
     }
@@ -143,6 +144,7 @@ def load_emulator(path) -> tuple[PathwayEmulator, dict]:
         setattr(em, name, ds[name].values.astype(float))
     mm = json.loads(ds.attrs["mean_model"])
     forcing = ds["forcing"].values.astype(float) if "forcing" in ds else None
+    mm["fit_years"] = tuple(mm["fit_years"])
     em.mean_model_ = PhysicsMean(forcing=forcing, **mm)
     iv = json.loads(ds.attrs["internal_variability"])
     em.internal_variability_ = None if iv is None else (float(iv[0]), float(iv[1]))

@@ -9,7 +9,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .ebm import TwoLayerParameters, integrate
+from .ebm import TwoLayerParameters, integrate, step_response_annual, toa_imbalance
 
 __all__ = ["PhysicsMean", "MEAN_PARAMETERS"]
 
@@ -19,7 +19,14 @@ MEAN_PARAMETERS = ("f2x", "heat_capacity", "deep_heat_capacity", "exchange", "ef
 
 @dataclass(frozen=True)
 class PhysicsMean:
-    """Two-layer response to `forcing` at λ = f2x / ECS (ECS = column `ecs_index` of X); zero if `forcing` is None."""
+    """Two-layer response to `forcing` at the sensitivity in column `ecs_index` of X; zero if `forcing` is None.
+
+    The input is `ecs_eff` as the extraction measured it: −erf_4x / (forcing_ratio · feedback) of a Gregory fit
+    over `fit_years` of the abrupt run. With ε = 1 the two-layer model's N is linear in T, so that fit returns
+    λ itself and λ = f2x / ecs_eff. With ε ≠ 1 the Gregory line is not λ (the (ε − 1)γ(T − T_d) term bends it,
+    Geoffroy et al. 2013b, from memory): λ is the one whose noise-free abrupt run, fitted as the extraction
+    fits it, gives that ecs_eff (`lambda_for`), so the efficacy is counted once.
+    """
 
     n_years: int
     forcing: np.ndarray | None = None
@@ -29,6 +36,8 @@ class PhysicsMean:
     exchange: float = np.nan
     efficacy: float = 1.0
     ecs_index: int = 0
+    forcing_ratio: float = 2.0  # erf_4x / F2x of the extraction's ecs_eff
+    fit_years: tuple = (1, 150)  # the extraction's Gregory window
 
     #: above this many distinct ECS values the response is computed on a grid and interpolated
     exact_limit = 4096
@@ -56,6 +65,30 @@ class PhysicsMean:
 
     def response(self, ecs) -> np.ndarray:
         """Exact two-layer response (n, n_years) at the given ECS values."""
-        params = TwoLayerParameters(self.f2x / np.asarray(ecs, float), self.heat_capacity, self.deep_heat_capacity,
+        params = TwoLayerParameters(self.lambda_for(ecs), self.heat_capacity, self.deep_heat_capacity,
                                     self.exchange, self.efficacy)
         return integrate(self.forcing, params)[0]
+
+    def gregory_ecs(self, lambda_) -> np.ndarray:
+        """ecs_eff the extraction would measure for the two-layer model at λ: Gregory OLS over `fit_years` of its
+        noise-free abrupt run (annual means, step forcing_ratio · f2x)."""
+        lam = np.asarray(lambda_, float)
+        params = TwoLayerParameters(lam, self.heat_capacity, self.deep_heat_capacity, self.exchange, self.efficacy)
+        first, last = int(self.fit_years[0]), int(self.fit_years[1])
+        step = self.forcing_ratio * self.f2x
+        temp, deep = step_response_annual(last, step, params)
+        rtnt = toa_imbalance(step, temp, deep, params)
+        t, n = temp[..., first - 1:], rtnt[..., first - 1:]
+        tc = t - t.mean(axis=-1, keepdims=True)
+        slope = np.sum(tc * (n - n.mean(axis=-1, keepdims=True)), axis=-1) / np.sum(tc * tc, axis=-1)
+        intercept = n.mean(axis=-1) - slope * t.mean(axis=-1)
+        return -intercept / (self.forcing_ratio * slope)
+
+    def lambda_for(self, ecs) -> np.ndarray:
+        """λ (> 0) at which the model's Gregory-fitted sensitivity is `ecs` (f2x / ecs when ε = 1)."""
+        ecs = np.asarray(ecs, float)
+        if self.efficacy == 1.0:
+            return self.f2x / ecs
+        grid = np.exp(np.linspace(np.log(0.02), np.log(20.0), 2001))
+        measured = self.gregory_ecs(grid)  # decreasing in λ
+        return np.exp(np.interp(np.log(ecs), np.log(measured[::-1]), np.log(grid[::-1])))

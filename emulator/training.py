@@ -7,6 +7,7 @@ dropped silently.
 """
 from __future__ import annotations
 
+import json
 from collections import Counter
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -56,6 +57,16 @@ class TrainingSet:
     table: pd.DataFrame
     skipped: pd.DataFrame = field(default_factory=lambda: pd.DataFrame(columns=["model", "member", "reason"]))
     source: str = ""
+    forcing_ratio: float = 2.0  # erf_4x / F2x the extraction used (series files' `forcing_ratio`)
+    fit_years: tuple[int, int] | None = None  # the table's Gregory window (sensitivity.nc's configuration)
+    flags: tuple[str, ...] = ()  # recorded fallbacks, e.g. forcing_ratio_assumed
+
+    def fit_window(self, i: int) -> tuple[int, int] | None:
+        """The Gregory window of run i: the extraction's `fit_years`, else years 1..the table's `n_years`."""
+        if self.fit_years is not None:
+            return tuple(self.fit_years)
+        n = self.table["n_years"].iloc[i] if "n_years" in self.table else np.nan
+        return (1, int(n)) if np.isfinite(n) and n > 0 else None
 
     @property
     def n_runs(self) -> int:
@@ -71,6 +82,7 @@ class TrainingSet:
             scenario_rtnt=self.scenario_rtnt[idx], abrupt_tas=pick(self.abrupt_tas),
             abrupt_rtnt=pick(self.abrupt_rtnt), control_tas=pick(self.control_tas),
             table=self.table.iloc[idx].reset_index(drop=True), skipped=self.skipped, source=self.source,
+            forcing_ratio=self.forcing_ratio, fit_years=self.fit_years, flags=self.flags,
         )
 
 
@@ -185,6 +197,7 @@ def load_training_set(extract_dir, scenario: str | None = None, inputs=("ecs_eff
         rec = dict(row=row, model=model, member=member, x=values, tas=scen["tas"].to_numpy().astype(float),
                    rtnt=scen["rtnt"].to_numpy().astype(float),
                    calendar=(scen["calendar_year"].to_numpy() if "calendar_year" in scen.coords else None))
+        rec["forcing_ratio"] = root.get("forcing_ratio")
         abrupt = _role_group(root, groups, "abrupt")
         control = _role_group(root, groups, "control")
         rec["abrupt"] = _read_group(path, abrupt) if abrupt else None
@@ -205,6 +218,7 @@ def load_training_set(extract_dir, scenario: str | None = None, inputs=("ecs_eff
             kept.append(r)
     if not kept:
         raise EmulatorInputError(f"no usable run for scenario {scenario!r}", path=extract_dir)
+    forcing_ratio, fit_years, flags = _extraction_settings(extract_dir, kept)
     calendars = [r["calendar"] for r in kept]
     same_calendar = all(c is not None and np.array_equal(c, calendars[0]) for c in calendars)
     return TrainingSet(
@@ -223,7 +237,33 @@ def load_training_set(extract_dir, scenario: str | None = None, inputs=("ecs_eff
         table=pd.DataFrame([r["row"] for r in kept]).reset_index(drop=True),
         skipped=pd.DataFrame(skipped, columns=["model", "member", "reason"]),
         source=str(extract_dir),
+        forcing_ratio=forcing_ratio,
+        fit_years=fit_years,
+        flags=flags,
     )
+
+
+def _extraction_settings(extract_dir: Path, records) -> tuple[float, tuple[int, int] | None, tuple[str, ...]]:
+    """(forcing_ratio, fit_years, flags) of the extraction: the ratio from the series files' root attribute
+    (absent: 2, flagged `forcing_ratio_assumed`; different between runs: an error), the Gregory window from
+    sensitivity.nc's recorded configuration (absent: None, each run's table `n_years` then)."""
+    ratios = {float(r["forcing_ratio"]) for r in records if r.get("forcing_ratio") is not None}
+    if len(ratios) > 1:
+        raise EmulatorInputError(f"the series files were extracted with different forcing_ratio values {sorted(ratios)}",
+                                 path=extract_dir / "series", hint="extract all runs with one forcing_ratio")
+    flags = () if ratios else ("forcing_ratio_assumed",)
+    ratio = ratios.pop() if ratios else 2.0
+    fit_years = None
+    nc = extract_dir / "sensitivity.nc"
+    if nc.exists():
+        try:
+            with netCDF4.Dataset(nc) as ds:
+                config = json.loads(ds.getncattr("sensemble_config")) if "sensemble_config" in ds.ncattrs() else {}
+            window = config.get("fit_years")
+            fit_years = (int(window[0]), int(window[1])) if window else None
+        except (OSError, ValueError, TypeError, IndexError):
+            fit_years = None
+    return ratio, fit_years, flags
 
 
 def load_physics_set(extract_dir, inputs=("ecs_eff",)) -> TrainingSet:

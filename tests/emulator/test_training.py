@@ -69,3 +69,24 @@ def test_subset_keeps_labels_aligned(extract_dir):
     i = list(ts.models).index("TOY-02")
     np.testing.assert_array_equal(sub.Y[0], ts.Y[i])
     assert len(sub.abrupt_tas) == 11
+
+
+def test_forcing_ratio_read_from_the_series_files(tmp_path):
+    # The extraction records forcing_ratio (erf_4x / F2x) in each series file; absent, 2 is assumed and flagged,
+    # never silently (issue 10); the mean's F2x is the calibrated 4x forcing over that ratio.
+    import netCDF4
+
+    from sensemble.emulator.ensemble import EnsembleEmulator
+
+    write_extract_dir(tmp_path, n_models=5, n_years=40, seed=2, members={})
+    ts = load_training_set(tmp_path)
+    assert ts.forcing_ratio == 2.0 and ts.flags == ("forcing_ratio_assumed",)
+    est = EnsembleEmulator(max_components=2).fit(ts)
+    assert any("forcing_ratio" in note for note in est.notes_)
+    for path in (tmp_path / "series").glob("*.nc"):
+        with netCDF4.Dataset(path, "a") as nc:
+            nc.forcing_ratio = 2.5
+    ts = load_training_set(tmp_path)
+    assert ts.forcing_ratio == 2.5 and ts.flags == ()
+    est2 = EnsembleEmulator(max_components=2).fit(ts)
+    assert est2.mean_parameters_["f2x"] == pytest.approx(est.mean_parameters_["f2x"] * 2 / 2.5, rel=1e-12)

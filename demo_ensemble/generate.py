@@ -161,6 +161,10 @@ def generate(root, *, n_models: int = 8, seed: int = 0, grid=DEFAULT_GRID, years
                                                      for k, v in enumerate(values)], ["year", "erf"])
     readme = _README.format(seed=seed, n=n_models, nlat=nlat, nlon=nlon,
                             names=", ".join(m.source_id for m in models))
+    if mixed:
+        cmip5 = [m.source_id for m in models if m.index % 2 == 1]
+        readme += (f"\nFiled the CMIP5 way (under archive/output1/, abrupt4xCO2, members r1i1p1, netCDF-3): "
+                   f"{', '.join(cmip5) or 'none'}; the others the CMIP6 way.\n")
     (root / "README.txt").write_text(readme)
     if progress:
         print(f"demo_ensemble: archive at {archive} in {time.perf_counter() - started:.1f} s",

@@ -115,3 +115,24 @@ def test_time_bounds_give_the_weights_when_present():
     assert out.tas.item() == pytest.approx(values.mean(), rel=1e-14)
     assert out.attrs["annual_weights"] == "time_bounds"
     assert "time_bnds" not in out
+
+
+def test_years_from_the_first_month_keep_every_whole_block():
+    # issue 11: a run starting on 1 July has years July–June; 24 months are two whole years, none dropped.
+    # Values 0..23 with noleap month lengths: each block's mean is the length-weighted mean of its months
+    # (hand computation with the CF noleap month lengths, §4.4.1).
+    out = annual_means(series("noleap", 1850, 24, start_month=7), start="first_month")
+    assert list(out["year"].values) == [1850, 1851] and out.attrs["first_month"] == 7
+    assert "partial_years" not in out.attrs["flags"]
+    lengths = np.array(NOLEAP[6:] + NOLEAP[:6], dtype=float)
+    expected = [np.sum(np.arange(12) * lengths) / lengths.sum(), np.sum(np.arange(12, 24) * lengths) / lengths.sum()]
+    np.testing.assert_allclose(out["tas"].values, expected, rtol=1e-12)
+    # the calendar-year default is unchanged for the same series
+    assert list(annual_means(series("noleap", 1850, 24, start_month=7))["year"].values) == [1851]
+
+
+def test_years_from_the_first_month_of_a_january_series_are_calendar_years():
+    # common practice, no source: both conventions agree when a series starts in January
+    data = series("360_day", 1850, 36)
+    a, b = annual_means(data), annual_means(data, start="first_month")
+    xr.testing.assert_identical(a["tas"], b["tas"])

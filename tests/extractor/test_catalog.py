@@ -138,3 +138,41 @@ def test_non_monthly_tables_skipped_with_a_problem(tmp_path):
 def test_missing_root_is_a_problem(tmp_path):
     catalog = scan(tmp_path / "nowhere")
     assert catalog.runs == [] and "does not exist" in catalog.problems[0]
+
+
+# --- CMIP5 names and directories, Zarr stores (issue 11) -------------------------------------
+
+def test_cmip5_names_have_no_grid_label_and_the_date_range_is_not_one():
+    facets = parse_file_name(Path("tas_Amon_TESTMODEL-5_abrupt4xCO2_r1i1p1_185001-199912.nc"))
+    assert (facets.mip_era, facets.grid_label, facets.time_range, facets.member_id) == (
+        "CMIP5", "", "185001-199912", "r1i1p1")
+    fixed = parse_file_name(Path("areacella_fx_TESTMODEL-5_piControl_r0i0p0.nc"))
+    assert (fixed.mip_era, fixed.table_id, fixed.time_range) == ("CMIP5", "fx", None)
+    cmip6 = parse_file_name(Path("areacella_fx_TESTMODEL-1_piControl_r1i1p1f1_gn.nc"))
+    assert (cmip6.mip_era, cmip6.grid_label) == ("CMIP6", "gn")
+
+
+def test_cmip5_tree_groups_time_chunks_into_one_run_with_r0i0p0_areas(tmp_path):
+    base = tmp_path / "output1" / "INST" / "TESTMODEL-5" / "abrupt4xCO2" / "mon" / "atmos" / "Amon" / "r1i1p1"
+    for version in ("v20110101", "v20120101"):
+        for chunk in ("185001-189912", "190001-194912"):
+            touch(base / version / "tas" / f"tas_Amon_TESTMODEL-5_abrupt4xCO2_r1i1p1_{chunk}.nc")
+    touch(tmp_path / "output1" / "INST" / "TESTMODEL-5" / "piControl" / "fx" / "atmos" / "fx" / "r0i0p0" / "v1" /
+          "areacella" / "areacella_fx_TESTMODEL-5_piControl_r0i0p0.nc")
+    catalog = scan(tmp_path, ExtractionSettings(required_variables=("tas",)))
+    (run,) = catalog.runs
+    assert (run.model, run.member, run.experiment_id, run.mip_era, run.version) == (
+        "TESTMODEL-5", "r1i1p1", "abrupt4xCO2", "CMIP5", "v20120101")
+    assert [p.parent.parent.name for p in run.files["tas"]] == ["v20120101", "v20120101"] and len(run.files["tas"]) == 2
+    assert run.areacella.name == "areacella_fx_TESTMODEL-5_piControl_r0i0p0.nc" and run.flags == []
+
+
+def test_zarr_stores_are_found_by_their_directories_or_names(tmp_path):
+    store = tmp_path / MODEL / "piControl" / "r1i1p1f1" / "Amon" / "tas" / "gn" / "v20260101"
+    touch(store / ".zgroup")
+    touch(store / "tas" / "0.0.0")
+    named = tmp_path / "flat" / f"rlut_Amon_{MODEL}_piControl_r1i1p1f1_gn.zarr"
+    touch(named / "zarr.json")
+    catalog = scan(tmp_path, ExtractionSettings(required_variables=("tas", "rlut")))
+    (run,) = catalog.runs
+    assert run.files == {"tas": [store], "rlut": [named]} and run.origin == "zarr" and catalog.problems == []

@@ -236,3 +236,44 @@ def test_join_chain_refuses_mixed_calendars():
     scenario = _series(np.arange(2015, 2101), experiment_id="ssp-invented", calendar="360_day")
     with pytest.raises(ControlError, match="calendar"):
         join_chain(_historical(), scenario)
+
+
+# --- mid-year branches (issue 11) ---------------------------------------------------------------
+
+def test_branch_point_gives_the_month():
+    # noleap: 181 days from 1 Jan to 1 Jul (CF §4.4.1 month lengths); the last day of a month counts as the next
+    from sensemble.extractor.control import branch_point
+    control = _control()
+    for branch_time, expected in ((365 * 10 + 181, (1860, 7)), (365 * 10 + 180.5, (1860, 7)),
+                                  (365 * 10 + 170, (1860, 6)), (365 * 10, (1860, 1))):
+        attrs = {"branch_time_in_parent": branch_time, "parent_time_units": "days since 1850-01-01"}
+        assert branch_point(attrs, control)[:2] == expected, branch_time
+
+
+def test_cmip5_branch_time_is_in_the_controls_own_units():
+    # CMIP5 convention (no parent_time_units): branch_time counts in the control's time units
+    from sensemble.extractor.control import branch_point
+    control = _control(first=1)
+    control.attrs["time_units"] = "days since 0001-01-01"
+    attrs = {"branch_time_in_parent": 365.0 * 40, "branch_time_convention": "CMIP5"}
+    assert branch_point(attrs, control) == (41, 1, [])
+    assert branch_point({"branch_time_in_parent": 365.0 * 40}, control)[2] == ["branch_assumed"]
+
+
+def test_mid_year_branch_evaluates_the_drift_at_the_matching_months():
+    # A control drifting linearly in time, c(t) = a + b t: its annual means are a + b (Y + 1/2). An experiment
+    # starting on 1 July of control year B has years whose means are a + b (B + k − 1 + 1/2 + 1/2); with no
+    # response its anomalies are zero only if the drift is evaluated half a year later than for a January
+    # branch (common practice, no source: the mean of a linear function over a year is its mid-year value).
+    b = 0.01
+    control = _control(first=1850, n=200)
+    control["tas"] = control["tas"] + b * (control["year"] - 1850 + 0.5)
+    years = np.arange(1900, 1940)
+    values = {name: np.full(years.size, BASE[name]) for name in VARS}
+    values["tas"] = BASE["tas"] + b * (years - 1850 + 0.5 + 0.5)
+    experiment = _series(years, values, experiment_id="abrupt-4xCO2")
+    anomalies, flags = drift_corrected(experiment, control, 1900, branch_month=7)
+    np.testing.assert_allclose(anomalies["tas"].values, 0.0, atol=1e-9)
+    assert anomalies.attrs["branch_month"] == 7 and flags == []
+    january, _ = drift_corrected(experiment, control, 1900)
+    np.testing.assert_allclose(january["tas"].values, b / 2, atol=1e-9)  # half a year of drift left over

@@ -17,22 +17,13 @@ import numpy as np
 import pytest
 import xarray as xr
 
+from tests.cli.test_cli import TINY_TOML
 from tests.cli.test_run import run_cli
 from tests.extractor.conftest import write_monthly_file
 from tests.faults.conftest import (BRANCH_YEAR, F4X, FEEDBACK, LEAKS, MEMBER, TARGET, delta_t, file_of, files_of,
                                    rewrite, rows_by_model)
 
-CONFIG = """\
-[extraction]
-fit_years = [1, 40]
-early_years = [1, 10]
-late_years = [11, 40]
-tcr_years = [1, 5]
-bootstrap_samples = 100
-
-[output]
-figures = false
-"""
+CONFIG = TINY_TOML  # the fault suite's windows (tests/faults/conftest.py SETTINGS), for the command line
 NUMBERS = ("erf_4x", "erf_4x_se", "feedback", "feedback_se", "ecs_eff", "ecs_eff_q05", "ecs_eff_q95",
            "feedback_early", "feedback_late", "ecs_late", "curvature", "n_years")
 

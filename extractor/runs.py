@@ -20,7 +20,7 @@ from .filemeans import FileSource, lazy_file_means
 from .means import (EARTH_RADIUS_M, MIN_SPHERE_FRACTION, area_weights, find_lat_lon, global_mean, labelled_mean,
                     sphere_fraction)
 from .settings import ExtractionSettings
-from .stores import name_of, open_dataset
+from .stores import is_zarr, name_of, open_dataset
 
 #: time chunk of the lazy arrays: ten years of monthly fields
 DEFAULT_CHUNKS = None  # sized per file: whole years, about CHUNK_BYTES of data per chunk
@@ -244,8 +244,8 @@ def _file_task_mean(da: xr.DataArray, weights: xr.DataArray, files: list, keep: 
     grid = tuple(weights.dims)
     sources = []
     for path, steps, dims, offset in files:
-        if set(dims) != {"time", *grid} or len(dims) != len(grid) + 1:
-            return None
+        if set(dims) != {"time", *grid} or len(dims) != len(grid) + 1 or is_zarr(path):
+            return None  # Zarr stores are read through xarray's backend, by the general reduction
         axes = (dims.index("time"), *(dims.index(d) for d in grid))
         sources.append(FileSource(str(path), str(da.name), int(steps), axes, offset))
     data = lazy_file_means(sources, np.asarray(weights.values, dtype=np.float64), f"global-mean-{da.name}")

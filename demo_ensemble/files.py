@@ -7,12 +7,13 @@ name in its folder first and is renamed when complete.
 """
 from __future__ import annotations
 
-import os
+import contextlib
 from pathlib import Path
 
 import netCDF4
 import numpy as np
 
+from sensemble.contract.atomic import atomic_path
 from sensemble.contract.cf import CONVENTIONS as CF_CONVENTIONS, TEMPERATURE_ON_SCALE
 
 from . import generations
@@ -111,10 +112,15 @@ def _drs_folder(archive: Path, model: ModelSpec, experiment_id: str, member: str
     return archive / model.source_id / experiment_id / member / table / variable / GRID_LABEL / VERSION
 
 
+@contextlib.contextmanager
 def _atomic_dataset(path: Path, file_format: str = "NETCDF4"):
-    path.parent.mkdir(parents=True, exist_ok=True)
-    tmp = path.with_name(f".{path.name}.part")
-    return tmp, netCDF4.Dataset(tmp, "w", format=file_format)
+    """A new NetCDF file open for writing under a temporary name; it replaces ``path`` when the block ends."""
+    with atomic_path(path) as tmp:
+        ds = netCDF4.Dataset(tmp, "w", format=file_format)
+        try:
+            yield ds
+        finally:
+            ds.close()
 
 
 def _add_lat_lon(ds, grid: Grid) -> None:
@@ -147,17 +153,13 @@ def write_areacella(archive: Path, model: ModelSpec, grid: Grid, era: str = gene
     else:
         folder = _drs_folder(archive, model, CONTROL, "r1i1p1f1", "fx", "areacella")
         path = folder / f"areacella_fx_{model.source_id}_{CONTROL}_r1i1p1f1_{GRID_LABEL}.nc"
-    tmp, ds = _atomic_dataset(path, file_format)
-    try:
+    with _atomic_dataset(path, file_format) as ds:
         ds.setncatts(gattrs)
         _add_lat_lon(ds, grid)
         v = ds.createVariable("areacella", "f4", ("lat", "lon"), zlib=True, complevel=_COMPLEVEL, shuffle=True,
                               fill_value=FILL_VALUE)
         v.setncatts(VARIABLE_ATTRS["areacella"])
         v[:] = grid.area
-    finally:
-        ds.close()
-    os.replace(tmp, path)
     return path
 
 
@@ -209,8 +211,7 @@ def write_run(archive: Path, model: ModelSpec, run: Run, branch: dict | None, va
         path = folder / f"{stem}_{y0:04d}{m0:02d}-{y1:04d}{m1:02d}.nc"
         nt = last - first
         file_bounds = bounds[first:last]
-        tmp, ds = _atomic_dataset(path, file_format)
-        try:
+        with _atomic_dataset(path, file_format) as ds:
             # the cell areas live in their own fx file (CF §2.6.3, §7.2)
             ds.setncatts(gattrs | {"external_variables": "areacella"})
             ds.createDimension("time", nt)
@@ -236,8 +237,5 @@ def write_run(archive: Path, model: ModelSpec, run: Run, branch: dict | None, va
                 hi = min(lo + block, last)
                 months = np.arange(lo, hi) % 12
                 v[lo - first: hi - first] = recipe.build(series[lo:hi], months).astype(np.float32)
-        finally:
-            ds.close()
-        os.replace(tmp, path)
         paths.append(path)
     return paths

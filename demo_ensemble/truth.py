@@ -13,10 +13,11 @@ from __future__ import annotations
 
 import csv
 import math
-import os
 from pathlib import Path
 
 import numpy as np
+
+from sensemble.contract.atomic import atomic_path
 
 from .calendar import annual_mean
 from .forcing import REFERENCE_F2X, month_times, reference_chain
@@ -138,13 +139,11 @@ def _cell(value) -> str:
 def write_csv(path: Path, rows: list[dict], columns: list[str]) -> Path:
     """Write rows atomically (temporary file, then rename); missing values are empty cells."""
     path = Path(path)
-    tmp = path.with_name(f".{path.name}.part")
-    with open(tmp, "w", newline="") as fh:
+    with atomic_path(path) as tmp, open(tmp, "w", newline="") as fh:
         w = csv.writer(fh)
         w.writerow(columns)
         for row in rows:
             w.writerow([_cell(row.get(c)) for c in columns])
-    os.replace(tmp, path)
     return path
 
 

@@ -1,7 +1,6 @@
 """Figures of the emulator: a pathway fan per case, and the validation scatter (matplotlib, Agg backend)."""
 from __future__ import annotations
 
-import re
 from pathlib import Path
 
 import matplotlib
@@ -10,13 +9,9 @@ matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 
-from .atomic import atomic_path  # noqa: E402
+from sensemble.contract.atomic import atomic_path  # noqa: E402
 
-__all__ = ["fan_figure", "validation_figure", "safe_name"]
-
-
-def safe_name(text: str) -> str:
-    return re.sub(r"[^A-Za-z0-9._=-]+", "_", text).strip("_") or "case"
+__all__ = ["fan_figure", "validation_figure"]
 
 
 def _save(fig, path) -> Path:

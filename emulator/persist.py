@@ -17,7 +17,7 @@ import xarray as xr
 
 from sensemble.contract.cf import CONVENTIONS, TEMPERATURE_DIFFERENCE, history_line
 
-from .atomic import atomic_path
+from sensemble.contract.atomic import atomic_path
 from .errors import EmulatorInputError
 from .gp import PathwayEmulator
 from .physics_mean import PhysicsMean

@@ -21,6 +21,8 @@ import pandas as pd
 import xarray as xr
 from scipy.stats import norm
 
+from sensemble.contract.flags import EXTRAPOLATED
+
 from .errors import EmulatorInputError
 
 __all__ = ["Case", "point_case", "lognormal_case", "lognormal_samples", "likely_range_quantiles", "samples_file_case",
@@ -308,7 +310,7 @@ def predict_cases(emulator, cases, *, training_X, years, calendar_years=None, th
                 q = emulator.quantiles(x, quantiles)[0] if hasattr(emulator, "quantiles") else \
                     mean[None, :] + z[:, None] * sd[None, :]
             outside = np.any((x < lo) | (x > hi))
-            flag = "extrapolated" if outside else ""
+            flag = EXTRAPOLATED if outside else ""
             shown = x[0]
         else:
             xs = np.asarray(case.samples, float)

@@ -18,7 +18,7 @@ import pandas as pd
 from sensemble.contract.cf import CONVENTIONS, TEMPERATURE_DIFFERENCE, history_line
 from sensemble.contract.table import COLUMN_META
 
-from .atomic import atomic_path, write_csv
+from sensemble.contract.atomic import atomic_path, write_csv
 from .ensemble import EnsembleEmulator
 from .errors import EmulatorInputError
 from .persist import save_emulator
@@ -147,7 +147,8 @@ def emulate(extract_dir, out_dir, settings: EmulatorSettings = EmulatorSettings(
     files.append(save_emulator(emulator.emulator_, out_dir / "emulator.nc", metadata))
 
     if prediction.figures:
-        from .figures import fan_figure, safe_name, validation_figure  # matplotlib only when figures are wanted
+        from sensemble.contract.names import safe_name
+        from .figures import fan_figure, validation_figure  # matplotlib only when figures are wanted
 
         say("drawing figures")
         for name in list(result.dataset["case"].values)[: prediction.max_fan_figures]:

@@ -17,6 +17,10 @@ import numpy as np
 import pandas as pd
 import xarray as xr
 
+from sensemble.contract import series as schema
+from sensemble.contract.names import series_file_name
+from sensemble.contract.table import TABLE_CSV
+
 from .errors import EmulatorInputError
 
 __all__ = ["TrainingSet", "load_training_set", "load_physics_set", "available_scenarios"]
@@ -87,19 +91,19 @@ class TrainingSet:
 
 
 def _series_path(extract_dir: Path, model: str, member: str) -> Path:
-    return extract_dir / "series" / f"{model}_{member}.nc"
+    return extract_dir / schema.SERIES_FOLDER / series_file_name(model, member)
 
 
 def _series_index(extract_dir: Path) -> dict:
     """{(model, member): path} from the files' own root attributes (file names may be sanitised)."""
     index = {}
-    for path in sorted(Path(extract_dir, "series").glob("*.nc")):
+    for path in sorted(Path(extract_dir, schema.SERIES_FOLDER).glob("*.nc")):
         try:
             root, _ = _groups(path)
         except OSError:
             continue
-        if "model" in root and "member" in root:
-            index[(str(root["model"]), str(root["member"]))] = path
+        if schema.MODEL in root and schema.MEMBER in root:
+            index[(str(root[schema.MODEL]), str(root[schema.MEMBER]))] = path
     return index
 
 
@@ -112,28 +116,28 @@ def _groups(path: Path) -> tuple[dict, dict]:
 
 
 def _scenarios_of(root: dict, groups: dict) -> list[str]:
-    listed = [s for s in str(root.get("scenarios", "")).split(";") if s]
-    tagged = [name for name, attrs in groups.items() if attrs.get("role") == "scenario"]
+    listed = [s for s in str(root.get(schema.SCENARIOS, "")).split(schema.SEPARATOR) if s]
+    tagged = [name for name, attrs in groups.items() if attrs.get(schema.ROLE) == schema.SCENARIO]
     return [s for s in dict.fromkeys(listed + tagged) if s in groups]
 
 
 def available_scenarios(extract_dir) -> dict[str, int]:
     """{scenario id: number of runs holding it} over the folder's series files."""
     counts: Counter = Counter()
-    for path in sorted(Path(extract_dir, "series").glob("*.nc")):
+    for path in sorted(Path(extract_dir, schema.SERIES_FOLDER).glob("*.nc")):
         counts.update(_scenarios_of(*_groups(path)))
     return dict(counts)
 
 
 def _role_group(root: dict, groups: dict, role: str) -> str | None:
-    name = root.get(f"role_{role}")
+    name = root.get(schema.role_attribute(role))
     if name in groups:
         return name
-    tagged = [n for n, a in groups.items() if a.get("role") == role]
+    tagged = [n for n, a in groups.items() if a.get(schema.ROLE) == role]
     return tagged[0] if len(tagged) == 1 else None
 
 
-def _read_group(path: Path, group: str, variables=("tas", "rtnt")) -> xr.Dataset:
+def _read_group(path: Path, group: str, variables=(schema.TAS, schema.RTNT)) -> xr.Dataset:
     with xr.open_dataset(path, group=group, engine="netcdf4") as ds:
         missing = [v for v in variables if v not in ds]
         if missing:
@@ -154,7 +158,7 @@ def load_training_set(extract_dir, scenario: str | None = None, inputs=("ecs_eff
     group is absent, or the scenario's length differs from the most common length.
     """
     extract_dir = Path(extract_dir)
-    table_path = extract_dir / "sensitivity.csv"
+    table_path = extract_dir / TABLE_CSV
     if not table_path.exists():
         raise EmulatorInputError("no sensitivity.csv", path=extract_dir, hint="point to an extractor output folder")
     table = pd.read_csv(table_path, dtype={"model": str, "member": str, "flags": str}, keep_default_na=True)
@@ -165,7 +169,7 @@ def load_training_set(extract_dir, scenario: str | None = None, inputs=("ecs_eff
                                  hint=f"choose among {', '.join(c for c in table.columns if c not in ('model', 'member', 'flags'))}")
     available = available_scenarios(extract_dir)
     if not available:
-        raise EmulatorInputError("no scenario runs in the series files", path=extract_dir / "series",
+        raise EmulatorInputError("no scenario runs in the series files", path=extract_dir / schema.SERIES_FOLDER,
                                  hint="extract at least one scenario experiment")
     if scenario is None:
         if len(available) > 1:
@@ -194,14 +198,14 @@ def load_training_set(extract_dir, scenario: str | None = None, inputs=("ecs_eff
             skipped.append((model, member, f"no {scenario} group in {path.name}"))
             continue
         scen = _read_group(path, scenario)
-        rec = dict(row=row, model=model, member=member, x=values, tas=scen["tas"].to_numpy().astype(float),
-                   rtnt=scen["rtnt"].to_numpy().astype(float),
-                   calendar=(scen["calendar_year"].to_numpy() if "calendar_year" in scen.coords else None))
-        rec["forcing_ratio"] = root.get("forcing_ratio")
-        abrupt = _role_group(root, groups, "abrupt")
-        control = _role_group(root, groups, "control")
+        rec = dict(row=row, model=model, member=member, x=values, tas=scen[schema.TAS].to_numpy().astype(float),
+                   rtnt=scen[schema.RTNT].to_numpy().astype(float),
+                   calendar=(scen[schema.CALENDAR_YEAR].to_numpy() if schema.CALENDAR_YEAR in scen.coords else None))
+        rec["forcing_ratio"] = root.get(schema.FORCING_RATIO)
+        abrupt = _role_group(root, groups, schema.ABRUPT)
+        control = _role_group(root, groups, schema.CONTROL)
         rec["abrupt"] = _read_group(path, abrupt) if abrupt else None
-        rec["control"] = _read_group(path, control, ("tas",))["tas"].to_numpy().astype(float) if control else None
+        rec["control"] = _read_group(path, control, (schema.TAS,))[schema.TAS].to_numpy().astype(float) if control else None
         records.append(rec)
 
     if not records:
@@ -231,8 +235,8 @@ def load_training_set(extract_dir, scenario: str | None = None, inputs=("ecs_eff
         members=np.array([r["member"] for r in kept], dtype=object),
         scenario=scenario,
         scenario_rtnt=np.array([r["rtnt"] for r in kept], dtype=float),
-        abrupt_tas=[r["abrupt"]["tas"].to_numpy().astype(float) if r["abrupt"] is not None else None for r in kept],
-        abrupt_rtnt=[r["abrupt"]["rtnt"].to_numpy().astype(float) if r["abrupt"] is not None else None for r in kept],
+        abrupt_tas=[r["abrupt"][schema.TAS].to_numpy().astype(float) if r["abrupt"] is not None else None for r in kept],
+        abrupt_rtnt=[r["abrupt"][schema.RTNT].to_numpy().astype(float) if r["abrupt"] is not None else None for r in kept],
         control_tas=[r["control"] for r in kept],
         table=pd.DataFrame([r["row"] for r in kept]).reset_index(drop=True),
         skipped=pd.DataFrame(skipped, columns=["model", "member", "reason"]),
@@ -271,7 +275,7 @@ def load_physics_set(extract_dir, inputs=("ecs_eff",)) -> TrainingSet:
     scenario (`Y` has no years, `scenario` is empty). A run without inputs, series file or abrupt run is
     skipped and recorded, as in `load_training_set`."""
     extract_dir = Path(extract_dir)
-    table_path = extract_dir / "sensitivity.csv"
+    table_path = extract_dir / TABLE_CSV
     if not table_path.exists():
         raise EmulatorInputError("no sensitivity.csv", path=extract_dir, hint="point to an extractor output folder")
     table = pd.read_csv(table_path, dtype={"model": str, "member": str, "flags": str}, keep_default_na=True)
@@ -293,15 +297,15 @@ def load_physics_set(extract_dir, inputs=("ecs_eff",)) -> TrainingSet:
             skipped.append((model, member, f"no series file {path.name}"))
             continue
         root, groups = _groups(path)
-        abrupt, control = _role_group(root, groups, "abrupt"), _role_group(root, groups, "control")
+        abrupt, control = _role_group(root, groups, schema.ABRUPT), _role_group(root, groups, schema.CONTROL)
         if abrupt is None:
             skipped.append((model, member, f"no abrupt run in {path.name}"))
             continue
         series = _read_group(path, abrupt)
         kept.append(dict(row=row, model=model, member=member, x=values,
-                         abrupt_tas=series["tas"].to_numpy().astype(float),
-                         abrupt_rtnt=series["rtnt"].to_numpy().astype(float),
-                         control=_read_group(path, control, ("tas",))["tas"].to_numpy().astype(float)
+                         abrupt_tas=series[schema.TAS].to_numpy().astype(float),
+                         abrupt_rtnt=series[schema.RTNT].to_numpy().astype(float),
+                         control=_read_group(path, control, (schema.TAS,))[schema.TAS].to_numpy().astype(float)
                          if control else None))
     if not kept:
         raise EmulatorInputError("no run with inputs and an abrupt run", path=extract_dir,

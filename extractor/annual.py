@@ -5,6 +5,8 @@ import cftime
 import numpy as np
 import xarray as xr
 
+from sensemble.contract.flags import PARTIAL_YEARS
+
 from .errors import ArchiveError
 
 _SECONDS_PER_DAY = 86400.0
@@ -118,8 +120,8 @@ def annual_means(ds: xr.Dataset, start: str = "january") -> xr.Dataset:
     attrs = dict(ds.attrs)
     if dropped.size:
         flags = [f for f in str(attrs.get("flags", "")).split(";") if f]
-        if "partial_years" not in flags:
-            flags.append("partial_years")
+        if PARTIAL_YEARS not in flags:
+            flags.append(PARTIAL_YEARS)
         attrs["flags"] = ";".join(flags)
         attrs["partial_years_dropped"] = ";".join(str(int(y)) for y in dropped)
     attrs.setdefault("flags", "")

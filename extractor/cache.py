@@ -14,6 +14,7 @@ from pathlib import Path
 import xarray as xr
 
 from sensemble import __version__
+from sensemble.contract import series as series_schema
 from sensemble.contract.table import ALL_COLUMNS
 
 from .settings import ExtractionSettings
@@ -39,6 +40,7 @@ def fingerprint(unit: Unit, settings: ExtractionSettings, stats: dict[Path, Loca
     h.update(json.dumps(settings_record(settings), sort_keys=True, default=str).encode())
     h.update(__version__.encode())
     h.update(",".join(ALL_COLUMNS).encode())  # a cached row must have today's columns
+    h.update(f"series schema {series_schema.SCHEMA_VERSION}".encode())  # and its file today's attributes
     for run in unit.runs():
         for path in sorted(run.all_files(), key=str):
             st = stats[path]

@@ -25,6 +25,8 @@ from collections import defaultdict
 from dataclasses import dataclass, field
 from pathlib import Path
 
+from sensemble.contract.flags import AREACELLA_OTHER_MEMBER
+
 from .settings import ExtractionSettings
 from .stores import ZARR_MARKERS
 
@@ -400,4 +402,4 @@ def _attach_area(run: RunFiles, areas: list[FileFacets]) -> None:
     best = max(candidates, key=preference)
     run.areacella = best.path
     if not own(best):
-        run.flags.append("areacella_other_member")
+        run.flags.append(AREACELLA_OTHER_MEMBER)

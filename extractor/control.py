@@ -19,8 +19,7 @@ import cftime
 import numpy as np
 import xarray as xr
 
-BRANCH_ASSUMED = "branch_assumed"
-CONTROL_SHORT = "control_short"
+from sensemble.contract.flags import BRANCH_ASSUMED, CHAIN_LACKS, CONTROL_LACKS, CONTROL_SHORT
 
 
 class ControlError(ValueError):
@@ -252,7 +251,7 @@ def drift_corrected(
     if available < min(n, span) or starts[overlapping][-1] + 1 < parallel[-1] + 1 - 1e-9:
         flags.append(CONTROL_SHORT)
     shared = [name for name in experiment.data_vars if name in control.data_vars]
-    flags += [f"control_lacks_{name}" for name in experiment.data_vars if name not in control.data_vars]
+    flags += [f"{CONTROL_LACKS}{name}" for name in experiment.data_vars if name not in control.data_vars]
     if not shared:
         raise ControlError(f"{who}: the control {_describe(control.attrs)} has none of its variables")
     drift = _drift(segment[shared], parallel, order)
@@ -326,7 +325,7 @@ def join_chain(first: xr.Dataset, continuation: xr.Dataset) -> xr.Dataset:
     attrs["chain"] = f"{first_id};{next_id}"
     attrs["files"] = ";".join(f for f in (first.attrs.get("files", ""), continuation.attrs.get("files", "")) if f)
     flags = {f for part in (first, continuation) for f in str(part.attrs.get("flags", "")).split(";") if f}
-    flags |= {f"chain_lacks_{name}" for name in lacking}
+    flags |= {f"{CHAIN_LACKS}{name}" for name in lacking}
     attrs["flags"] = ";".join(sorted(flags))
     joined.attrs = attrs
     return joined

@@ -1,26 +1,11 @@
 """The error a user can act on: which model, which file, what is wrong, what to do."""
 from __future__ import annotations
 
-from os import PathLike
+from sensemble.contract.errors import SensembleError
 
 
-class ArchiveError(Exception):
-    """Bad input in the archive, reported in one line.
-
-    ``str(error)`` reads ``"model X: file Y: problem — what to do"``; the parts that are
-    unknown are left out. The pieces stay available as attributes so a batch can record
-    the failure of one run and go on with the others.
-
-    Parameters
-    ----------
-    message : str
-        What is wrong.
-    path : path-like, optional
-        The file concerned (or several, already joined by the caller).
-    model : str, optional
-        The model (``source_id``) concerned; ``member`` and ``experiment_id`` may be added.
-    hint : str, optional
-        What the user can do about it.
+class ArchiveError(SensembleError):
+    """Bad input in the archive, reported in one line (model → file → problem → what to do).
 
     Examples
     --------
@@ -28,52 +13,6 @@ class ArchiveError(Exception):
     "model ALPHA-1: file rlut.nc: units 'W' are not a flux — fix the units attribute"
     """
 
-    def __init__(
-        self,
-        message: str,
-        path: str | PathLike | None = None,
-        model: str | None = None,
-        hint: str | None = None,
-        member: str | None = None,
-        experiment_id: str | None = None,
-    ):
-        self.message = message
-        self.path = None if path is None else str(path)
-        self.model = model
-        self.hint = hint
-        self.member = member
-        self.experiment_id = experiment_id
-        super().__init__(str(self))
 
-    def __str__(self) -> str:
-        parts = []
-        if self.model:
-            who = f"model {self.model}"
-            if self.member:
-                who += f" member {self.member}"
-            if self.experiment_id:
-                who += f" {self.experiment_id}"
-            parts.append(who)
-        if self.path:
-            parts.append(f"file {self.path}")
-        parts.append(self.message)
-        text = ": ".join(parts)
-        if self.hint:
-            text += f" — {self.hint}"
-        # one line, whatever the pieces held
-        return " ".join(text.split())
-
-    def __reduce__(self):
-        # keep the pieces when the error travels between dask worker processes
-        return (
-            _rebuild,
-            (self.message, self.path, self.model, self.hint, self.member, self.experiment_id),
-        )
-
-
-def _rebuild(message, path, model, hint, member, experiment_id):
-    return ArchiveError(message, path=path, model=model, hint=hint, member=member, experiment_id=experiment_id)
-
-
-class OutputInUseError(RuntimeError):
+class OutputInUseError(SensembleError, RuntimeError):
     """The output folder is locked by another running extraction; ``str(error)`` is one line saying what to do."""

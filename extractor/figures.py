@@ -9,7 +9,7 @@ matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 
-from .atomic import atomic_path  # noqa: E402
+from sensemble.contract.atomic import atomic_path  # noqa: E402
 
 
 def _save(fig, path: Path) -> Path:

@@ -1,17 +1,11 @@
-"""Quality flags of a run's fits, and the one way flags are written out."""
+"""Quality flags of a run's fits (the flags themselves, their meanings and how they are joined: the contract)."""
 from __future__ import annotations
 
 import math
-from collections.abc import Iterable
 
+from sensemble.contract.flags import (ECS_UNBOUNDED, ENERGY_LEAK, NONPHYSICAL, POOR_FIT,  # noqa: F401 — re-exported
+                                      join_flags)
 from sensemble.extractor.settings import ExtractionSettings
-
-ENERGY_LEAK = "energy_leak"
-POOR_FIT = "poor_fit"
-NONPHYSICAL = "nonphysical"
-#: suffix of ``ecs_eff_unbounded`` / ``ecs_late_unbounded``: the feedback is not distinguishable from zero at
-#: the interval's level, so the interval has no upper end (q95 = inf), or no interval exists (both empty)
-ECS_UNBOUNDED = "unbounded"
 
 
 def _finite(value) -> bool:
@@ -45,15 +39,3 @@ def quality_flags(fit, control_rtnt_mean: float | None, settings: ExtractionSett
     if feedback_unstable or ecs_out_of_range:
         flags.append(NONPHYSICAL)
     return flags
-
-
-def join_flags(flags: Iterable[str]) -> str:
-    """Flags as one ``;``-separated string: sorted, each once, empty ones dropped.
-
-    Elements may themselves be ``;``-joined (e.g. a series' ``flags`` attribute).
-
-    >>> join_flags(["poor_fit", "branch_assumed;control_short", "", "poor_fit"])
-    'branch_assumed;control_short;poor_fit'
-    """
-    parts = {part.strip() for flag in flags for part in str(flag).split(";")}
-    return ";".join(sorted(part for part in parts if part))

@@ -6,6 +6,8 @@ import netCDF4
 import numpy as np
 import xarray as xr
 
+from sensemble.contract.flags import COS_WEIGHTS, LON_BOUNDS_DERIVED
+
 from .errors import ArchiveError
 
 # netCDF-C gives every variable of every open file a cache of decompressed HDF5 chunks (64 MB by default);
@@ -108,7 +110,7 @@ def area_weights(
                 width = _lon_widths(lon_b.values.astype(np.float64))
             else:
                 width = _lon_widths_from_centres(ds[lon].values.astype(np.float64))
-                flag = "lon_bounds_derived"
+                flag = LON_BOUNDS_DERIVED
             area = EARTH_RADIUS_M**2 * np.outer(band, np.deg2rad(width))
             weights = xr.DataArray(
                 area,
@@ -122,7 +124,7 @@ def area_weights(
     cos = np.cos(np.deg2rad(ds[lat].astype(np.float64))).clip(min=0.0)
     weights = (cos * xr.ones_like(ds[lon], dtype=np.float64)).rename("cell_weight")
     weights.attrs = {"units": "1", "weight_source": "cos_lat"}
-    return weights, "cos_weights"
+    return weights, COS_WEIGHTS
 
 
 def _lon_widths(bounds: np.ndarray) -> np.ndarray:

@@ -15,7 +15,9 @@ from typing import Callable
 
 from sensemble import __version__
 from sensemble.contract.cf import CONVENTIONS, history_line
-from sensemble.contract.names import safe_name
+from sensemble.contract.flags import RUN_FAILED
+from sensemble.contract import series as schema
+from sensemble.contract.names import safe_name, series_file_name
 
 from .cache import cached_row, file_stats, fingerprint, settings_record
 from .catalog import scan
@@ -91,14 +93,15 @@ def _extract_locked(archive, out_dir: Path, settings: ExtractionSettings, *, for
     stats = file_stats(units)
     for unit in units:
         fps[unit.key] = fingerprint(unit, settings, stats)
-        row = None if force else cached_row(out_dir / "series" / f"{safe_name(unit.key)}.nc", fps[unit.key])
+        row = None if force else cached_row(out_dir / schema.SERIES_FOLDER / series_file_name(unit.model, unit.member),
+                                            fps[unit.key])
         if row is not None:
             rows.append(row)
             cached.append(unit.key)
         else:
             todo.append(unit)
     if cached:
-        log(f"reusing {len(cached)} finished runs from {out_dir / 'series'} (use --force to recompute)")
+        log(f"reusing {len(cached)} finished runs from {out_dir / schema.SERIES_FOLDER} (use --force to recompute)")
 
     runs = list({run.label: run for unit in todo for run in unit.runs()}.values())
     files = {p for unit in todo for r in unit.runs() for p in r.all_files()}
@@ -123,7 +126,7 @@ def _extract_locked(archive, out_dir: Path, settings: ExtractionSettings, *, for
         if bad:
             unit = dataclasses.replace(unit, onepct=None if unit.onepct in bad else unit.onepct,
                                        others=[r for r in unit.others if r not in bad],
-                                       flags=unit.flags + ["run_failed"])
+                                       flags=unit.flags + [RUN_FAILED])
         try:
             rows.append(_finish_unit(unit, series, settings, out_dir, fps[unit.key], figures))
             computed.append(unit.key)
@@ -156,23 +159,25 @@ def _finish_unit(unit: Unit, series: dict, settings: ExtractionSettings, out_dir
     """One unit's science, then its series file (with the cache record) and its Gregory plot; returns its row."""
     science = unit_science(unit, series, settings)
     row = science.row.as_dict()
+    control_id, abrupt_id, onepct_id = settings.roles(unit.mip_era)
     attrs = {
         "Conventions": CONVENTIONS,
         "history": history_line(f"sensemble extract: series of {unit.model} {unit.member}"),
         "title": f"Annual global-mean anomalies of {unit.model} {unit.member}, drift-corrected against the control",
         "source": f"sensemble {__version__}",
-        "model": unit.model,
-        "member": unit.member,
-        "role_control": settings.roles(unit.mip_era)[0],
-        "role_abrupt": settings.roles(unit.mip_era)[1],
-        "role_onepct": settings.roles(unit.mip_era)[2],
-        "mip_era": unit.mip_era,
-        "scenarios": ";".join(science.scenarios),
-        "fingerprint": fp,
-        "sensitivity_row": json.dumps(row, sort_keys=True),
-        "input_files": "\n".join(str(p) for r in unit.runs() for p in r.all_files()),
+        schema.MODEL: unit.model,
+        schema.MEMBER: unit.member,
+        schema.role_attribute(schema.CONTROL): control_id,
+        schema.role_attribute(schema.ABRUPT): abrupt_id,
+        schema.role_attribute(schema.ONEPCT): onepct_id,
+        schema.MIP_ERA: unit.mip_era,
+        schema.SCENARIOS: schema.SEPARATOR.join(science.scenarios),
+        schema.FORCING_RATIO: float(settings.forcing_ratio),
+        schema.FINGERPRINT: fp,
+        schema.SENSITIVITY_ROW: json.dumps(row, sort_keys=True),
+        schema.INPUT_FILES: "\n".join(str(p) for r in unit.runs() for p in r.all_files()),
     }
-    write_series(out_dir / "series" / f"{safe_name(unit.key)}.nc", science.groups, attrs)
+    write_series(out_dir / schema.SERIES_FOLDER / series_file_name(unit.model, unit.member), science.groups, attrs)
     if figures and science.abrupt is not None:
         gregory_plot(science.abrupt["tas"].values, science.abrupt["rtnt"].values, row, settings,
                      out_dir / "figures" / f"gregory_{safe_name(unit.key)}.png")

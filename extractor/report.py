@@ -3,9 +3,8 @@ from __future__ import annotations
 
 from pathlib import Path
 
+from sensemble.contract.atomic import write_text
 from sensemble.contract.table import ECS_INTERVAL_METHODS
-
-from .atomic import write_text
 
 
 def _fmt(value, digits=2) -> str:

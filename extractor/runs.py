@@ -14,6 +14,8 @@ from pathlib import Path
 import numpy as np
 import xarray as xr
 
+from sensemble.contract.flags import ATTRIBUTE_MISMATCH, BRANCH_TIME_UNREADABLE, CALENDAR_DEFAULTED, TIME_TRIMMED
+
 from .catalog import RunFiles
 from .errors import ArchiveError
 from .filemeans import FileSource, lazy_file_means
@@ -114,8 +116,8 @@ def _open_run(run: RunFiles, chunks: dict | None, required: tuple[str, ...]) -> 
         opened = []
         for path in paths:
             ds, file_calendar, defaulted, offset = _open_file(path, variable, run, chunks)
-            if defaulted and "calendar_defaulted" not in flags:
-                flags.append("calendar_defaulted")
+            if defaulted and CALENDAR_DEFAULTED not in flags:
+                flags.append(CALENDAR_DEFAULTED)
             if calendar is None:
                 calendar = (file_calendar, path, defaulted)
             elif CALENDARS[file_calendar] != CALENDARS[calendar[0]]:
@@ -159,7 +161,7 @@ def _open_run(run: RunFiles, chunks: dict | None, required: tuple[str, ...]) -> 
         raise _error(run, ref_path, "the variables share no time step", "give all variables the same period")
     trimmed = any(months[v].size != common.size for v in series)
     if trimmed:
-        flags.append("time_trimmed")
+        flags.append(TIME_TRIMMED)
     ref_positions = np.flatnonzero(np.isin(months[reference], common))
     time = series[reference]["time"].isel(time=ref_positions)
     data_vars = {}
@@ -466,7 +468,7 @@ def _run_attributes(run: RunFiles, mismatches: list[str], template: xr.Dataset, 
              "origin": run.origin}
     if mismatches:
         # the path names the run; the files' own attributes are kept for the report
-        flags.append("attribute_mismatch")
+        flags.append(ATTRIBUTE_MISMATCH)
         attrs["attribute_mismatch"] = "; ".join(dict.fromkeys(mismatches))
     attrs["parent_experiment_id"] = str(template.attrs.get("parent_experiment_id", "")).strip()
     attrs["parent_time_units"] = str(template.attrs.get("parent_time_units", "")).strip()
@@ -480,7 +482,7 @@ def _run_attributes(run: RunFiles, mismatches: list[str], template: xr.Dataset, 
         try:
             attrs["branch_time_in_parent"] = float(np.asarray(branch, dtype=np.float64).ravel()[0])
         except (TypeError, ValueError, IndexError):
-            flags.append("branch_time_unreadable")
+            flags.append(BRANCH_TIME_UNREADABLE)
     attrs["grid_label"] = run.grid_label
     if run.version:
         attrs["version"] = run.version

@@ -9,6 +9,8 @@ from dataclasses import dataclass
 import numpy as np
 import xarray as xr
 
+from sensemble.contract import series as schema
+from sensemble.contract.flags import NO_ABRUPT, NO_ONEPCT, ONEPCT_SHORT, UNLINKED
 from sensemble.contract.names import safe_name
 from sensemble.contract.table import SensitivityRow
 
@@ -83,7 +85,7 @@ def scenario_chains(annual: dict[str, xr.Dataset], settings: ExtractionSettings,
         elif parent in by_id and by_id[parent].attrs.get("parent_experiment_id") == control_id:
             chains[exp_id] = join_chain(by_id[parent], ds)
         else:
-            flags.append(f"unlinked_{safe_name(exp_id)}")
+            flags.append(f"{UNLINKED}{safe_name(exp_id)}")
     if settings.scenarios is not None:
         chains = {k: v for k, v in chains.items() if k in settings.scenarios}
     return chains, flags
@@ -169,9 +171,9 @@ def fit_row(unit: Unit, abrupt: xr.Dataset | None, tcr_value: float | None, cont
             values.update(feedback_lw_cs=comps.feedback_lw_cs, feedback_sw_cs=comps.feedback_sw_cs,
                           feedback_cre=comps.feedback_cre)
     else:
-        flags.append("no_abrupt")
+        flags.append(NO_ABRUPT)
     if unit.onepct is None:
-        flags.append("no_onepct")
+        flags.append(NO_ONEPCT)
     control_n = float(control_annual["rtnt"].mean()) if "rtnt" in control_annual else float("nan")
     flags.extend(quality_flags(fit, control_n, settings))
     return SensitivityRow(**values, flags=join_flags(flags))
@@ -196,24 +198,24 @@ def unit_science(unit: Unit, series: dict[str, xr.Dataset], settings: Extraction
         residuals = control_residuals(control, order=settings.drift_order)
     except ControlError as err:
         raise run_error(err, unit.control, control, "supply a longer control run") from None
-    groups = {unit.control.experiment_id: series_group(residuals, "control")}
+    groups = {unit.control.experiment_id: series_group(residuals, schema.CONTROL)}
 
     abrupt_anom = tcr_value = None
     if unit.abrupt is not None:
         abrupt_anom, more = anomalies(annual[unit.abrupt.experiment_id], control, settings, unit.abrupt,
                                       unit.control)
         flags.extend(more)
-        groups[unit.abrupt.experiment_id] = series_group(abrupt_anom, "abrupt")
+        groups[unit.abrupt.experiment_id] = series_group(abrupt_anom, schema.ABRUPT)
     if unit.onepct is not None:
         onepct_anom, more = anomalies(annual[unit.onepct.experiment_id], control, settings, unit.onepct,
                                       unit.control)
         flags.extend(more)
-        groups[unit.onepct.experiment_id] = series_group(onepct_anom, "onepct")
+        groups[unit.onepct.experiment_id] = series_group(onepct_anom, schema.ONEPCT)
         try:
             tcr_value = float(transient_response(onepct_anom["tas"], years=settings.tcr_years))
         except FitWindowError:
             # the Gregory results stand on their own: keep them, leave tcr empty and say why
-            flags.append("onepct_short")
+            flags.append(ONEPCT_SHORT)
 
     others = {r.experiment_id: annual[r.experiment_id] for r in unit.others}
     try:
@@ -227,7 +229,7 @@ def unit_science(unit: Unit, series: dict[str, xr.Dataset], settings: Extraction
         anom, more = anomalies(ds, control, settings, next((r for r in unit.others if r.experiment_id == exp_id),
                                                            None), unit.control)
         flags.extend(more)
-        groups[exp_id] = series_group(anom, "scenario")
+        groups[exp_id] = series_group(anom, schema.SCENARIO)
 
     row = fit_row(unit, abrupt_anom, tcr_value, control, residuals, settings, flags)
     return UnitScience(row, groups, sorted(chains), abrupt_anom)

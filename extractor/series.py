@@ -5,31 +5,32 @@ from pathlib import Path
 
 import xarray as xr
 
+from sensemble.contract import series as schema
 from sensemble.contract.cf import anomaly_attributes
 
-from .atomic import atomic_path
+from sensemble.contract.atomic import atomic_path
 
-SERIES_VARIABLES = ("tas", "rtnt", "rtnt_cs", "lw_cs", "sw_cs", "cre")
+SERIES_VARIABLES = schema.VARIABLES
 
 
 def series_group(ds: xr.Dataset, role: str) -> xr.Dataset:
     """A run's annual anomalies as a series-file group: the series variables, ``year`` from 1, the role."""
     keep = [v for v in SERIES_VARIABLES if v in ds]
     out = ds[keep].astype("float64")
-    what = ("annual global mean, drift-removed residual of the control" if role == "control" else
+    what = ("annual global mean, drift-removed residual of the control" if role == schema.CONTROL else
             "annual global-mean anomaly, drift-corrected against the control")
     for v in keep:
         # each value is an area mean over the globe and a mean over its year (CF §7.3 names the group's own
         # dimension; the monthly `time` of the archive is gone)
         out[v].attrs = anomaly_attributes(ds[v].attrs, what) | {"cell_methods": "area: mean year: mean"}
-    out.attrs = {"role": role, "experiment_id": str(ds.attrs.get("experiment_id", "")),
-                 "branch_year_in_control": int(ds.attrs.get("branch_year", -1))}
-    if "chain" in ds.attrs:
-        out.attrs["chain"] = ds.attrs["chain"]
-    if "calendar_year" in ds.coords:
-        out = out.assign_coords(calendar_year=ds["calendar_year"].astype("int64"))
-    out["year"] = out["year"].astype("int64")
-    out["year"].attrs = {"long_name": "year counted from 1 at the branch from the control", "units": "1"}
+    out.attrs = {schema.ROLE: role, schema.EXPERIMENT_ID: str(ds.attrs.get("experiment_id", "")),
+                 schema.BRANCH_YEAR: int(ds.attrs.get("branch_year", -1))}
+    if schema.CHAIN in ds.attrs:
+        out.attrs[schema.CHAIN] = ds.attrs[schema.CHAIN]
+    if schema.CALENDAR_YEAR in ds.coords:
+        out = out.assign_coords({schema.CALENDAR_YEAR: ds[schema.CALENDAR_YEAR].astype("int64")})
+    out[schema.YEAR] = out[schema.YEAR].astype("int64")
+    out[schema.YEAR].attrs = {"long_name": "year counted from 1 at the branch from the control", "units": "1"}
     return out
 
 

@@ -12,9 +12,9 @@ import xarray as xr
 
 from sensemble.contract.cf import CONVENTIONS
 from sensemble.contract.table import (ALL_COLUMNS, COLUMN_META, COLUMNS, ECS_INTERVAL_METHODS, EXTRA_COLUMNS,  # noqa: F401
-                                      NUMERIC, TEXT_META)
+                                      NUMERIC, TABLE_CSV, TABLE_NC, TEXT_META, column_long_name)
 
-from .atomic import atomic_path, write_text
+from sensemble.contract.atomic import atomic_path, write_text
 
 
 def _cell(value) -> str:
@@ -43,8 +43,9 @@ def table_dataset(rows: list[dict], provenance: dict) -> xr.Dataset:
     data = {}
     for col in NUMERIC:
         values = np.array([np.nan if r.get(col) is None else float(r[col]) for r in rows], dtype=float)
-        units, long_name = COLUMN_META[col]
-        data[col] = ("run", values, {"units": units, "long_name": long_name})
+        long_name = column_long_name(col, tcr_years=provenance.get("config", {}).get("tcr_years"),
+                                     ecs_interval=provenance.get("config", {}).get("ecs_interval"))
+        data[col] = ("run", values, {"units": COLUMN_META[col][0], "long_name": long_name})
     for col, long_name in TEXT_META.items():
         data[col] = ("run", np.array([str(r.get(col) or "") for r in rows], dtype=object), {"long_name": long_name})
     ds = xr.Dataset(data)
@@ -56,6 +57,8 @@ def table_dataset(rows: list[dict], provenance: dict) -> xr.Dataset:
         "references": "Gregory et al. (2004), Geophys. Res. Lett., doi:10.1029/2003GL018747",
         "ecs_interval_method": ECS_INTERVAL_METHODS[provenance.get("config", {}).get("ecs_interval", "fieller")],
         "sensemble_config": json.dumps(provenance.get("config", {}), sort_keys=True, default=str),
+        # erf_4x / erf_2x behind ecs_eff, for readers that must not assume it (the emulator)
+        "forcing_ratio": float(provenance.get("config", {}).get("forcing_ratio", 2.0)),
         "sensemble_input_files": "\n".join(provenance.get("input_files", [])),
     }
     return ds
@@ -64,8 +67,8 @@ def table_dataset(rows: list[dict], provenance: dict) -> xr.Dataset:
 def write_table(rows: list[dict], out_dir: str | Path, provenance: dict) -> tuple[Path, Path]:
     """Write `sensitivity.csv` and `sensitivity.nc` atomically into `out_dir`."""
     out_dir = Path(out_dir)
-    csv_path = write_text(out_dir / "sensitivity.csv", table_csv(rows))
-    nc_path = out_dir / "sensitivity.nc"
+    csv_path = write_text(out_dir / TABLE_CSV, table_csv(rows))
+    nc_path = out_dir / TABLE_NC
     ds = table_dataset(rows, provenance)
     with atomic_path(nc_path) as tmp:
         ds.to_netcdf(tmp, engine="netcdf4")

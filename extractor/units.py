@@ -9,6 +9,8 @@ from dataclasses import dataclass, field
 
 import netCDF4
 
+from sensemble.contract.flags import CONTROL_OTHER_MEMBER
+
 from .catalog import Catalog, RunFiles
 from .outcome import Failure
 from .settings import ExtractionSettings
@@ -55,7 +57,7 @@ def plan_units(catalog: Catalog, settings: ExtractionSettings) -> tuple[list[Uni
                 control = next((r for r in controls if r.member == member), None)
                 if control is None and len(controls) == 1:
                     control = controls[0]
-                    flags.append("control_other_member")
+                    flags.append(CONTROL_OTHER_MEMBER)
                 if control is None:
                     why = (f"no {control_id} run" if not controls else
                            f"{control_id} has several members ({', '.join(r.member for r in controls)}) and none "

@@ -6,10 +6,11 @@ The TOML text comes from `tomli_w` (the writer that pairs with the standard libr
 from __future__ import annotations
 
 import os
-import tempfile
 from pathlib import Path
 
 import tomli_w
+
+from sensemble.contract.atomic import write_text
 
 from .schema import BatchConfig, section_keys
 
@@ -49,15 +50,4 @@ def dump_config(config: BatchConfig) -> str:
 
 def save_config(config: BatchConfig, path: str | os.PathLike) -> Path:
     """Write `dump_config(config)` to `path` atomically (temporary file, then rename)."""
-    path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    handle, temporary = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
-    try:
-        with os.fdopen(handle, "w", encoding="utf-8") as stream:
-            stream.write(dump_config(config))
-        os.replace(temporary, path)
-    except BaseException:
-        if os.path.exists(temporary):
-            os.unlink(temporary)
-        raise
-    return path
+    return write_text(path, dump_config(config))

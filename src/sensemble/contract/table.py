@@ -4,6 +4,10 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
+#: the table's files inside an extraction's output folder
+TABLE_CSV = "sensitivity.csv"
+TABLE_NC = "sensitivity.nc"
+
 # The contract's columns, in order (DESIGN.md, "Outputs of extraction"), then our extras.
 COLUMNS = (
     "model", "member", "erf_4x", "erf_4x_se", "feedback", "feedback_se", "ecs_eff", "ecs_eff_q05",
@@ -63,6 +67,33 @@ TEXT_META = {
     "origin": "where the runs were read: netcdf files, zarr stores, or an esm catalogue (with its path)",
 }
 NUMERIC = tuple(c for c in ALL_COLUMNS if c not in TEXT_COLUMNS)
+
+
+def column_long_name(column: str, *, tcr_years: tuple[int, int] | None = None,
+                     ecs_interval: str | None = None) -> str:
+    """The long name of a numeric column as an extraction's settings make it.
+
+    ``tcr_years``: the TCR window used (years of the 1 % run, both ends inclusive); ``ecs_interval``: the
+    `ECS_INTERVAL_METHODS` key of the method that formed the ECS intervals, which the long name then states.
+    Left out, the default long name of `COLUMN_META` is given.
+
+    >>> column_long_name("tcr", tcr_years=(51, 70))
+    'transient climate response: mean warming in years 51-70 of the 1 % per year CO2 run'
+    >>> column_long_name("ecs_eff_q05", ecs_interval="block_bootstrap")[:88]
+    'lower end (5 %) of the 90 % interval of ecs_eff, percentiles of a circular moving-block '
+    """
+    if column == "tcr" and tcr_years is not None:
+        first, last = (int(year) for year in tcr_years)
+        return f"transient climate response: mean warming in years {first}-{last} of the 1 % per year CO2 run"
+    if column in _INTERVAL_ENDS and ecs_interval is not None:
+        end, of = _INTERVAL_ENDS[column]
+        text = f"{end} of the 90 % interval of {of}, {ECS_INTERVAL_METHODS[ecs_interval]}"
+        return text + ("; inf: no upper bound" if end.startswith("upper") else "")
+    return COLUMN_META[column][1]
+
+
+_INTERVAL_ENDS = {"ecs_eff_q05": ("lower end (5 %)", "ecs_eff"), "ecs_eff_q95": ("upper end (95 %)", "ecs_eff"),
+                  "ecs_late_q05": ("lower end (5 %)", "ecs_late"), "ecs_late_q95": ("upper end (95 %)", "ecs_late")}
 
 
 @dataclass

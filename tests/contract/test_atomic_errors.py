@@ -1,0 +1,40 @@
+"""The contract's atomic writer and error base class: what both stages rely on."""
+import doctest
+import pickle
+
+import pytest
+
+import sensemble.contract.atomic as atomic
+import sensemble.contract.errors as errors
+from sensemble.contract.atomic import atomic_path, write_text
+from sensemble.contract.errors import SensembleError
+from sensemble.emulator.errors import EmulatorInputError
+from sensemble.extractor.errors import ArchiveError, OutputInUseError
+
+
+def test_docstring_examples_run():
+    assert doctest.testmod(atomic).failed == 0 and doctest.testmod(errors).failed == 0
+
+
+def test_failed_write_leaves_the_old_file_and_no_temporary(tmp_path):
+    target = write_text(tmp_path / "report.md", "old")
+    with pytest.raises(RuntimeError):
+        with atomic_path(target) as tmp:
+            tmp.write_text("half")
+            raise RuntimeError("killed while writing")
+    assert target.read_text() == "old" and sorted(p.name for p in tmp_path.iterdir()) == ["report.md"]
+
+
+@pytest.mark.parametrize("cls", [ArchiveError, EmulatorInputError, OutputInUseError])
+def test_both_stages_share_one_message_order(cls):
+    # model → file → problem → what to do (STYLE.md), whichever stage raises
+    err = cls("no scenario runs", path="out/series/A_r1.nc", model="ALDER-1", hint="extract one")
+    assert isinstance(err, SensembleError)
+    assert str(err) == "model ALDER-1: file out/series/A_r1.nc: no scenario runs — extract one"
+
+
+def test_errors_keep_their_pieces_between_processes():
+    err = ArchiveError("bad units", path="tas.nc", model="ALDER-1", member="r1i1p1f1", experiment_id="piControl",
+                       hint="fix them")
+    back = pickle.loads(pickle.dumps(err))
+    assert type(back) is ArchiveError and str(back) == str(err) and back.member == "r1i1p1f1"

@@ -15,7 +15,7 @@ import pytest
 import xarray as xr
 
 from sensemble.extractor.errors import OutputInUseError
-from sensemble.extractor.lock import LOCK_NAME, acquire, output_lock, release
+from sensemble.extractor.lock import LOCK_NAME, Owner, acquire, output_lock, release, this_process
 from sensemble.extractor.table import ALL_COLUMNS, read_table
 from tests.faults.conftest import run_extract
 
@@ -155,7 +155,7 @@ def test_reading_never_modifies_the_archive(clean_archive, tmp_path):
 
 def test_lock_is_exclusive_within_a_process_and_released(tmp_path):
     with output_lock(tmp_path) as path:
-        assert path.read_text().strip() == str(os.getpid())
+        assert Owner.parse(path.read_text()) == this_process()  # host, pid and start of this process
         with pytest.raises(OutputInUseError, match=f"in use by process {os.getpid()} — wait for it"):
             acquire(tmp_path)
     assert not path.exists()
@@ -170,6 +170,6 @@ def test_lock_being_written_counts_as_taken_until_it_is_old(tmp_path):
     os.utime(lock, (old, old))  # a writer killed between creating and writing it
     notes = []
     path = acquire(tmp_path, notes)
-    assert path.read_text().strip() == str(os.getpid()) and "took over the lock" in notes[0]
+    assert Owner.parse(path.read_text()) == this_process() and "took over the lock" in notes[0]
     release(path)
     assert not path.exists()

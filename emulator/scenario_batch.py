@@ -25,9 +25,9 @@ from typing import Callable
 import numpy as np
 import pandas as pd
 
+from sensemble.contract.atomic import write_csv
 from sensemble.contract.names import safe_name
 
-from .atomic import write_csv
 from .ensemble import EnsembleEmulator, calibrate_runs
 from .errors import EmulatorInputError
 from .parameter_pathways import ParameterPathwayEmulator

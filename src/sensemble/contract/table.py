@@ -87,7 +87,8 @@ def column_long_name(column: str, *, tcr_years: tuple[int, int] | None = None,
         return f"transient climate response: mean warming in years {first}-{last} of the 1 % per year CO2 run"
     if column in _INTERVAL_ENDS and ecs_interval is not None:
         end, of = _INTERVAL_ENDS[column]
-        text = f"{end} of the 90 % interval of {of}, {ECS_INTERVAL_METHODS[ecs_interval]}"
+        text = f"{end} of the 90 % interval of {of}, {ECS_INTERVAL_METHODS[ecs_interval]} (global attribute " \
+               "ecs_interval_method)"
         return text + ("; inf: no upper bound" if end.startswith("upper") else "")
     return COLUMN_META[column][1]
 

@@ -49,4 +49,4 @@ def test_table_records_forcing_ratio_and_the_configured_windows(extracted):
         # the interval's long name says how the extractor formed it (issue 9, item 8)
         method = ECS_INTERVAL_METHODS[SETTINGS.ecs_interval]
         assert method in nc.variables["ecs_eff_q05"].long_name and method in nc.variables["ecs_late_q95"].long_name
-        assert nc.variables["ecs_eff_q95"].long_name.startswith("95th percentile")
+        assert nc.variables["ecs_eff_q95"].long_name.startswith("upper end (95 %)")

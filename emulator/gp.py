@@ -39,6 +39,17 @@ from .variability import ar1_noise
 __all__ = ["PathwayEmulator", "t_sd_factor", "KERNELS"]
 
 
+#: inputs that can drive the physics mean (λ = F2x / sensitivity): the 150-year effective sensitivity, or the
+#: late-segment one, nearer an equilibrium value (see the README on published equilibrium ranges)
+SENSITIVITY_INPUTS = ("ecs_eff", "ecs_late")
+
+
+def sensitivity_index(inputs) -> int:
+    """Column of the input that drives the physics mean: `ecs_eff` if given, else `ecs_late`."""
+    inputs = tuple(inputs)
+    return inputs.index("ecs_eff") if "ecs_eff" in inputs else inputs.index("ecs_late")
+
+
 def t_sd_factor(dof) -> np.ndarray:
     """Standard deviation of a Student-t per unit scale: √(ν/(ν − 2)); for ν ≤ 2 (infinite variance) the
     Gaussian with the same central 90 % interval, t_0.95,ν / z_0.95 (scipy.stats quantiles)."""
@@ -138,8 +149,8 @@ class PathwayEmulator(BaseEstimator):
             raise EmulatorInputError("smoothing 'response' needs the forcing of the physics mean",
                                      hint="use 'gaussian' or 'none' with physics_mean=False")
         if self.physics_mean:
-            if "ecs_eff" not in inputs:
-                raise EmulatorInputError("the physics mean needs 'ecs_eff' among the inputs",
+            if not set(SENSITIVITY_INPUTS) & set(inputs):
+                raise EmulatorInputError("the physics mean needs 'ecs_eff' among the inputs (or 'ecs_late')",
                                          hint="add it or set physics_mean=False")
             if forcing is None or mean_params is None:
                 raise EmulatorInputError("the physics mean needs forcing= and mean_params=")
@@ -149,8 +160,8 @@ class PathwayEmulator(BaseEstimator):
             missing = [k for k in MEAN_PARAMETERS if k not in mean_params]
             if missing:
                 raise EmulatorInputError(f"mean_params lacks {', '.join(missing)}")
-            if np.any(X[:, inputs.index("ecs_eff")] <= 0):
-                raise EmulatorInputError("ecs_eff must be > 0 for the physics mean")
+            if np.any(X[:, sensitivity_index(inputs)] <= 0):
+                raise EmulatorInputError(f"{inputs[sensitivity_index(inputs)]} must be > 0 for the physics mean")
         return X, Y, forcing
 
     def fit(self, X, Y, forcing=None, mean_params=None):
@@ -166,7 +177,7 @@ class PathwayEmulator(BaseEstimator):
         if self.physics_mean:
             extraction = {k: mean_params[k] for k in ("forcing_ratio", "fit_years") if mean_params.get(k) is not None}
             self.mean_model_ = PhysicsMean(n_years, forcing.copy(), *(float(mean_params[k]) for k in MEAN_PARAMETERS),
-                                           ecs_index=inputs.index("ecs_eff"), **extraction)
+                                           ecs_index=sensitivity_index(inputs), **extraction)
         else:
             self.mean_model_ = PhysicsMean(n_years)
         self.x_mean_ = X.mean(axis=0)
@@ -292,7 +303,7 @@ class PathwayEmulator(BaseEstimator):
         X = np.asarray(X, float).reshape(-1, len(self.x_mean_))
         ecs = X[:, self.mean_model_.ecs_index] if self.mean_model_.forcing is not None else None
         if ecs is not None and np.any(ecs <= 0):
-            raise EmulatorInputError(f"ecs_eff = {float(ecs[ecs <= 0][0]):g} K: the two-layer mean needs a positive "
+            raise EmulatorInputError(f"sensitivity {float(ecs[ecs <= 0][0]):g} K: the two-layer mean needs a positive "
                                      "sensitivity", hint="predict at ecs_eff > 0")
         return self.mean_model_(X) + self.residual_mean_ + mu @ self.components_
 

@@ -83,3 +83,16 @@ def test_prediction_at_non_positive_sensitivity_refused():
             em.predict([[bad]])
         with pytest.raises(EmulatorInputError, match="positive sensitivity"):
             em.sample_paths([[bad]], 10)
+
+
+def test_training_on_ecs_late():
+    # The documented way to work with a sensitivity nearer equilibrium (README): ecs_late drives the physics mean.
+    # With ε = 1 the late-segment Gregory slope is λ itself (N linear in T; Geoffroy et al. 2013a), so the mean at
+    # a model's own ecs_late reproduces its pathway (common practice, no source).
+    ecs = np.linspace(2.0, 5.0, 6)
+    Y = np.array([run(np.full(40, F2X), TwoLayerParameters(F2X / e, 8.0, 100.0, 0.7))[0] for e in ecs])
+    em = PathwayEmulator(inputs=("ecs_late",), max_components=2, smoothing="none").fit(
+        ecs[:, None], Y, forcing=np.full(40, F2X),
+        mean_params=dict(f2x=F2X, heat_capacity=8.0, deep_heat_capacity=100.0, exchange=0.7, efficacy=1.0))
+    truth = run(np.full(40, F2X), TwoLayerParameters(F2X / 3.3, 8.0, 100.0, 0.7))[0]
+    assert np.max(np.abs(em.predict([[3.3]])[0] - truth)) < 0.01

@@ -30,7 +30,7 @@ from .forcing import align_forcing, co2_forcing, diagnose_forcing, read_forcing_
 from .gp import PathwayEmulator
 from .settings import ESTIMATOR_CONSTRAINTS
 from .training import TrainingSet
-from .variability import internal_variability_from_control
+from .variability import internal_variability_if
 
 __all__ = ["EnsembleEmulator", "calibrate_runs", "per_model", "CALIBRATION_COLUMNS", "FORCING_RATIO"]
 
@@ -59,6 +59,19 @@ def calibrate_runs(ts: TrainingSet, efficacy: bool = False) -> pd.DataFrame:
             f"efficacy not converged after {diagnostics.iterations} iterations (left out of the mean parameters)"
         rows.append({**row, **{k: float(v) for k, v in asdict(params).items()}, "forcing_4x": f4x, "status": status})
     return pd.DataFrame(rows, columns=CALIBRATION_COLUMNS)
+
+
+def validate_params(estimator) -> None:
+    """Check an estimator's parameters against its declared `_parameter_constraints`, and that a file forcing
+    source names its file; one-line `EmulatorInputError` otherwise (shared by the emulator's estimators)."""
+    for name, allowed in estimator._parameter_constraints.items():
+        phrase = problem(getattr(estimator, name), allowed)
+        if phrase:
+            raise EmulatorInputError(f"{type(estimator).__name__}: {name} {phrase}")
+    if estimator.forcing_source == "file" and not estimator.forcing_file:
+        raise EmulatorInputError("forcing_source = 'file' needs forcing_file")
+    if estimator.forcing_source == "co2" and not estimator.co2_file:
+        raise EmulatorInputError("forcing_source = 'co2' needs co2_file")
 
 
 def per_model(ts: TrainingSet) -> tuple[np.ndarray, np.ndarray]:
@@ -140,14 +153,7 @@ class EnsembleEmulator(BaseEstimator):
 
     # -- fitting -----------------------------------------------------------------------------------------
     def _validate_params(self):
-        for name, allowed in self._parameter_constraints.items():
-            phrase = problem(getattr(self, name), allowed)
-            if phrase:
-                raise EmulatorInputError(f"{type(self).__name__}: {name} {phrase}")
-        if self.forcing_source == "file" and not self.forcing_file:
-            raise EmulatorInputError("forcing_source = 'file' needs forcing_file")
-        if self.forcing_source == "co2" and not self.co2_file:
-            raise EmulatorInputError("forcing_source = 'co2' needs co2_file")
+        validate_params(self)
 
     def fit(self, training_set: TrainingSet) -> "EnsembleEmulator":
         """Learn everything from `training_set` (an `emulator.training.TrainingSet`); returns self."""
@@ -167,12 +173,7 @@ class EnsembleEmulator(BaseEstimator):
                                      "forcing_ratio": ts.forcing_ratio, "fit_years": ts.fit_window(0) or (1, 150)}
             forcing, self.forcing_source_ = self._scenario_forcing(ts, self.mean_parameters_["f2x"])
         self.forcing_ = forcing
-        self.internal_variability_ = None
-        if self.internal_variability:
-            try:
-                self.internal_variability_ = internal_variability_from_control(ts.control_tas)
-            except EmulatorInputError as exc:
-                self.notes_.append(str(exc))
+        self.internal_variability_ = internal_variability_if(self.internal_variability, ts.control_tas, self.notes_)
         # one point per model: members differ only by internal variability, which is added separately; as
         # separate points they would look like exact repeats and shrink the structural scatter (one model, one vote)
         X, Y = per_model(ts)

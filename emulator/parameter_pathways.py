@@ -10,19 +10,22 @@ realisation, as the archive's runs are. The whole forcing pathway is run: no tra
 from __future__ import annotations
 
 from dataclasses import replace
+from numbers import Integral, Real
 
 import numpy as np
 import xarray as xr
 from sklearn.base import BaseEstimator
 
+from sensemble.contract.constraints import Interval, Options
+
 from .ebm import integrate
-from .ensemble import FORCING_RATIO, calibrate_runs
+from .ensemble import FORCING_RATIO, calibrate_runs, validate_params
 from .errors import EmulatorInputError
 from .forcing import align_forcing
 from .parameters import ParameterEmulator, parameter_table
 from .scenarios import ScenarioForcing, co2_scenario, diagnosed_scenario, file_scenario
 from .training import TrainingSet
-from .variability import ar1_noise, internal_variability_from_control
+from .variability import ar1_noise, internal_variability_if
 
 __all__ = ["sample_pathways", "mean_pathway", "ParameterPathwayEmulator", "ROUTE_NAME"]
 
@@ -84,9 +87,13 @@ class ParameterPathwayEmulator(BaseEstimator):
     route_ = ROUTE_NAME
     sampled_quantiles = True  # skewed predictive distribution: quantiles from samples (emulator.predict)
     _parameter_constraints = {
-        "forcing_source": [("diagnosed", "file", "co2")], "scale_to_f2x": [bool], "efficacy": [bool],
-        "internal_variability": [bool], "structural_scatter": [bool], "small_sample": [bool],
-        "n_moments": [(2, None)], "co2_reference": [(0.0, None)], "match_runs": [bool],
+        "inputs": [tuple, list], "forcing_source": [Options("diagnosed", "file", "co2")],
+        "forcing_file": [str, None], "co2_file": [str, None],
+        "co2_reference": [Interval(Real, 0, None, closed="neither")],
+        "forcing_f2x": [Interval(Real, 0, None, closed="neither"), None],
+        "scale_to_f2x": [bool], "match_runs": [bool], "efficacy": [bool], "internal_variability": [bool],
+        "structural_scatter": [bool], "small_sample": [bool], "n_moments": [Interval(Integral, 2, None, closed="left")],
+        "random_state": [Interval(Integral, 0, None, closed="left"), None],
     }
 
     def __init__(self, inputs=("ecs_eff",), forcing_source="diagnosed", forcing_file=None, co2_file=None,
@@ -108,28 +115,9 @@ class ParameterPathwayEmulator(BaseEstimator):
         self.n_moments = n_moments
         self.random_state = random_state
 
-    def _validate_params(self):
-        for name, allowed in self._parameter_constraints.items():
-            value = getattr(self, name)
-            ok = False
-            for rule in allowed:
-                if rule is bool:
-                    ok |= isinstance(value, (bool, np.bool_))
-                elif isinstance(rule, tuple) and len(rule) == 2 and not isinstance(rule[0], str):
-                    ok |= (isinstance(value, (int, float, np.number)) and not isinstance(value, bool)
-                           and (rule[0] is None or value >= rule[0]))
-                else:
-                    ok |= value in rule
-            if not ok:
-                raise EmulatorInputError(f"{name} = {value!r} is not allowed ({allowed})")
-        if self.forcing_source == "file" and not self.forcing_file:
-            raise EmulatorInputError("forcing_source = 'file' needs forcing_file")
-        if self.forcing_source == "co2" and not self.co2_file:
-            raise EmulatorInputError("forcing_source = 'co2' needs co2_file")
-
     def fit(self, training_set: TrainingSet) -> "ParameterPathwayEmulator":
         """Learn the parameter emulator, the forcing and the internal variability; returns self."""
-        self._validate_params()
+        validate_params(self)
         ts = training_set
         self.notes_ = []
         self.calibration_ = calibrate_runs(ts, efficacy=self.efficacy)
@@ -140,12 +128,7 @@ class ParameterPathwayEmulator(BaseEstimator):
         self.parameters_ = ParameterEmulator(tuple(self.inputs), self.structural_scatter, self.small_sample).fit(
             ts.X[ok], vectors, groups=ts.models[ok])
         self.scenario_ = self._scenario(ts, ok, vectors)
-        self.internal_variability_ = None
-        if self.internal_variability:
-            try:
-                self.internal_variability_ = internal_variability_from_control(ts.control_tas)
-            except EmulatorInputError as exc:
-                self.notes_.append(str(exc))
+        self.internal_variability_ = internal_variability_if(self.internal_variability, ts.control_tas, self.notes_)
         return self
 
     def _scenario(self, ts: TrainingSet, ok, vectors) -> ScenarioForcing:

@@ -145,6 +145,20 @@ def _read_group(path: Path, group: str, variables=(schema.TAS, schema.RTNT)) -> 
         return ds[list(variables)].load()
 
 
+def _read_table(extract_dir: Path, inputs) -> tuple[pd.DataFrame, tuple[str, ...]]:
+    """The sensitivity table of an extractor output folder, with the input columns checked."""
+    table_path = extract_dir / TABLE_CSV
+    if not table_path.exists():
+        raise EmulatorInputError("no sensitivity.csv", path=extract_dir, hint="point to an extractor output folder")
+    table = pd.read_csv(table_path, dtype={"model": str, "member": str, "flags": str}, keep_default_na=True)
+    inputs = tuple(inputs)
+    unknown = [c for c in inputs if c not in table.columns]
+    if unknown:
+        raise EmulatorInputError(f"input column(s) {', '.join(unknown)} not in the table", path=table_path,
+                                 hint=f"choose among {', '.join(c for c in table.columns if c not in ('model', 'member', 'flags'))}")
+    return table, inputs
+
+
 def load_training_set(extract_dir, scenario: str | None = None, inputs=("ecs_eff",)) -> TrainingSet:
     """Read an extractor output folder into a `TrainingSet`.
 
@@ -158,15 +172,7 @@ def load_training_set(extract_dir, scenario: str | None = None, inputs=("ecs_eff
     group is absent, or the scenario's length differs from the most common length.
     """
     extract_dir = Path(extract_dir)
-    table_path = extract_dir / TABLE_CSV
-    if not table_path.exists():
-        raise EmulatorInputError("no sensitivity.csv", path=extract_dir, hint="point to an extractor output folder")
-    table = pd.read_csv(table_path, dtype={"model": str, "member": str, "flags": str}, keep_default_na=True)
-    inputs = tuple(inputs)
-    unknown = [c for c in inputs if c not in table.columns]
-    if unknown:
-        raise EmulatorInputError(f"input column(s) {', '.join(unknown)} not in the table", path=table_path,
-                                 hint=f"choose among {', '.join(c for c in table.columns if c not in ('model', 'member', 'flags'))}")
+    table, inputs = _read_table(extract_dir, inputs)
     available = available_scenarios(extract_dir)
     if not available:
         raise EmulatorInputError("no scenario runs in the series files", path=extract_dir / schema.SERIES_FOLDER,
@@ -275,14 +281,7 @@ def load_physics_set(extract_dir, inputs=("ecs_eff",)) -> TrainingSet:
     scenario (`Y` has no years, `scenario` is empty). A run without inputs, series file or abrupt run is
     skipped and recorded, as in `load_training_set`."""
     extract_dir = Path(extract_dir)
-    table_path = extract_dir / TABLE_CSV
-    if not table_path.exists():
-        raise EmulatorInputError("no sensitivity.csv", path=extract_dir, hint="point to an extractor output folder")
-    table = pd.read_csv(table_path, dtype={"model": str, "member": str, "flags": str}, keep_default_na=True)
-    inputs = tuple(inputs)
-    unknown = [c for c in inputs if c not in table.columns]
-    if unknown:
-        raise EmulatorInputError(f"input column(s) {', '.join(unknown)} not in the table", path=table_path)
+    table, inputs = _read_table(extract_dir, inputs)
     index = _series_index(extract_dir)
     skipped, kept = [], []
     for _, row in table.iterrows():

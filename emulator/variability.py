@@ -5,7 +5,7 @@ import numpy as np
 
 from .errors import EmulatorInputError
 
-__all__ = ["internal_variability_from_control", "ar1_noise"]
+__all__ = ["internal_variability_from_control", "internal_variability_if", "ar1_noise"]
 
 
 def internal_variability_from_control(series) -> tuple[float, float]:
@@ -26,6 +26,18 @@ def internal_variability_from_control(series) -> tuple[float, float]:
     if not variances:
         raise EmulatorInputError("no control series of at least 10 years for the internal variability")
     return float(np.sqrt(np.mean(variances))), float(np.clip(np.mean(lags), 0.0, 0.95))
+
+
+def internal_variability_if(wanted: bool, series, notes: list) -> tuple[float, float] | None:
+    """The control runs' (sd, lag-1) when `wanted`; when they cannot give it, a note is added and None returned
+    (the prediction is then of the forced response only)."""
+    if not wanted:
+        return None
+    try:
+        return internal_variability_from_control(series)
+    except EmulatorInputError as exc:
+        notes.append(str(exc))
+        return None
 
 
 def ar1_noise(rng, shape, sd, phi, dtype=np.float32):

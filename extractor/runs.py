@@ -22,7 +22,7 @@ from .filemeans import FileSource, lazy_file_means
 from .means import (EARTH_RADIUS_M, MIN_SPHERE_FRACTION, area_weights, find_lat_lon, global_mean, labelled_mean,
                     sphere_fraction)
 from .settings import ExtractionSettings
-from .stores import is_zarr, name_of, open_dataset
+from .stores import is_url, is_zarr, name_of, open_dataset
 
 #: time chunk of the lazy arrays: ten years of monthly fields
 DEFAULT_CHUNKS = None  # sized per file: whole years, about CHUNK_BYTES of data per chunk
@@ -241,13 +241,16 @@ def global_mean_series(
 
 
 def _file_task_mean(da: xr.DataArray, weights: xr.DataArray, files: list, keep: np.ndarray | None):
-    """Lazy global mean of `da` with one read-and-reduce task per file, or None where a file's variable has
-    dims other than time and the grid (the general dask reduction, `global_mean`, handles those)."""
+    """Lazy global mean of `da` with one read-and-reduce task per local NetCDF file, or None for Zarr stores,
+    remote files and variables with dims other than time and the grid (the general dask reduction,
+    `global_mean`, handles those)."""
     grid = tuple(weights.dims)
     sources = []
     for path, steps, dims, offset in files:
-        if set(dims) != {"time", *grid} or len(dims) != len(grid) + 1 or is_zarr(path):
-            return None  # Zarr stores are read through xarray's backend, by the general reduction
+        if is_url(path) or is_zarr(path):  # Zarr stores and remote files: read through xarray's backends
+            return None
+        if set(dims) != {"time", *grid} or len(dims) != len(grid) + 1:
+            return None
         axes = (dims.index("time"), *(dims.index(d) for d in grid))
         sources.append(FileSource(str(path), str(da.name), int(steps), axes, offset))
     data = lazy_file_means(sources, np.asarray(weights.values, dtype=np.float64), f"global-mean-{da.name}")

@@ -1,113 +1,244 @@
-"""Benchmark of the extractor's throughput and scaling over workers (not run by pytest): prints figures.
+"""Benchmark of the extractor against the read-and-decompress floor of N cores (not run by pytest): prints a table.
 
-On a demo archive on a 1° grid (generated once under --dir and reused; the same archives as
-bench_extract.py), each in a fresh process, in MB of input files per second:
-  - the floor: read and decompress every needed variable with netCDF4, one thread (bench_extract's (a));
-  - the extractor on dask's threaded scheduler with 1 worker thread;
-  - the extractor on a local process pool (`sensemble.compute`, kind "processes") with 1 and 2 workers;
-the scaling ratio (time with 1 process / time with 2), and the peak memory of each worker process.
-With --memory-test, the 2-process run is repeated on archives with 2× the years and 2× the models: the
-per-worker peak should move < 10 % (issue 5).
+Archives (invented data, generated once under --dir and reused): the demo generator's models on a 64×128 grid,
+one archive of 1 model and one of 2, each rewritten in three storage layouts — 12 time steps per storage chunk
+(zlib level 1 + shuffle), 1 time step per chunk (what the usual CMIP writer produces), and classic netCDF-3,
+uncompressed. Each measurement is a fresh process, timed from outside as a whole (interpreter start included):
+  - floor, 1 process / N processes: netCDF4 reads and decompresses every file the extractor reads (each process
+    its share of the files, in slabs of whole storage chunks), nothing else;
+  - `sensemble extract` with no [compute] section (kind "auto": a pool of N worker processes);
+  - `sensemble extract` with [compute] kind = "processes", N workers (a local distributed cluster: the path a
+    SLURM/PBS cluster's workers take);
+  - `sensemble extract` with kind = "threads", N threads (the default before issue 12).
+The figure compared is the *marginal* time: the 2-model archive's time minus the 1-model archive's, so start-up
+(imports, pool or cluster start, catalogue) cancels and what remains is the cost of one more model's files.
+Beside each: MB of files per second of marginal time, CPU seconds of the whole process tree (user + sys: far less
+sensitive than wall time to other work on a shared machine), and the ratio to the N-process floor (goal ≤ 1.15).
+With --memory, the kind "processes" runs again on archives with 2× the years and 2× the models: the peak RSS of
+the largest worker should move less than 10 %.
 
-Run: python tests/benchmarks/bench_scale.py [--grid 180x360] [--models 1] [--years ...] [--dir FOLDER]
-         [--memory-test]
-The machine's 2 cores are shared with other work: the load average is printed beside each figure, and a
-scaling ratio above 1 needs two idle cores.
+Run: python tests/benchmarks/bench_scale.py [--workers N] [--years control=100,...] [--dir FOLDER]
+         [--layouts chunk12,chunk1,classic] [--memory]
 
-Measured 2026-12-02 (load average 1.2–2.4, 918 MB on disk): floor 84 MB/s; threads 1 worker 65 MB/s;
-processes 1 worker 35 MB/s, 2 workers 50 MB/s (×1.44), ~300 MiB per worker, +4 % with 2× years,
-+7 % with 2× models. Worker processes decompress slower than a plain process (see --worker-mmap-threshold):
-with 128 MiB there, 1 worker 40 MB/s, 2 workers 55 MB/s, ~390–450 MiB per worker.
+Measured 2026-12-02 — see the README's "Running at scale" for the figures and the machine's load beside them.
 """
 from __future__ import annotations
 
 import argparse
+import os
+import resource
+import shutil
+import subprocess
 import sys
+import time
 from pathlib import Path
 
 if __package__ in (None, ""):  # run as a script: make `tests` importable
     sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
-from tests.benchmarks.measure import (archive_bytes, archive_for, load, needed_files, parse_years,  # noqa: E402
-                                      run_child, years_text)
-
-EXTRACT_SCRIPT = Path(__file__).resolve().with_name("bench_extract.py")
+from tests.benchmarks.measure import MiB, _Poller, archive_for, load, needed_files, parse_years  # noqa: E402
 
 
-def measure(kind: str, archive: Path, out: Path, years: dict, compute: str | None = None) -> dict:
-    args = [str(EXTRACT_SCRIPT), "--child", kind, "--archive", str(archive), "--out", str(out),
-            "--years", years_text(years)]
-    if compute:
-        args += ["--compute", compute]
-    before = load()
-    result = run_child(args)
-    result["load"] = f"{before} → {load()}"
-    return result
+class TreePoller(_Poller):
+    """Peak RSS per process of a tree, and the CPU seconds (user + sys) each process had used when last seen."""
+
+    def __init__(self, pid: int):
+        super().__init__(pid)
+        self.cpu_by_pid: dict[int, float] = {}
+
+    def run(self) -> None:
+        import psutil
+
+        while not self.stop.is_set():
+            try:
+                procs = [self.root] + self.root.children(recursive=True)
+            except psutil.Error:
+                break
+            for proc in procs:
+                try:
+                    rss, times = proc.memory_info().rss, proc.cpu_times()
+                except psutil.Error:
+                    continue
+                self.peak_by_pid[proc.pid] = max(self.peak_by_pid.get(proc.pid, 0), rss)
+                self.cpu_by_pid[proc.pid] = times.user + times.system
+            self.stop.wait(self.interval)
+
+HERE = Path(__file__).resolve()
+GRID = (64, 128)
+DEFAULT_YEARS = "control=100,abrupt=60,onepct=60,historical=20,scenario=20"
+LAYOUTS = {
+    "chunk12": ("12 steps per chunk", dict(chunk_steps=12)),
+    "chunk1": ("1 step per chunk", dict(chunk_steps=1)),
+    "classic": ("classic, uncompressed", dict(file_format="NETCDF3_64BIT_OFFSET")),
+}
 
 
-def workers_peak(result: dict, workers: int) -> list[float]:
-    """Peak RSS of the worker processes: the largest descendants of the child (nannies are smaller)."""
-    return result["peak_descendants_mib"][:workers]
+def in_layout(archive: Path, layout: str) -> Path:
+    """`archive` rewritten in `layout` beside it (once; reused afterwards)."""
+    from tests.extractor.conftest import rewrite_file
+
+    dest = archive.parent / f"archive-{layout}"
+    done = dest / ".bench_complete"
+    if not done.exists():
+        started = time.perf_counter()
+        shutil.rmtree(dest, ignore_errors=True)
+        for path in sorted(archive.rglob("*.nc")):
+            rewrite_file(path, dest / path.relative_to(archive), **LAYOUTS[layout][1])
+        done.write_text("")
+        print(f"  rewrote {archive} as {layout} in {time.perf_counter() - started:.0f} s ({load()})", flush=True)
+    return dest
 
 
-def report(label: str, r: dict, mb: float, workers: int = 0) -> None:
-    text = f"{label:<36} {r['seconds']:7.1f} s  {mb / r['seconds']:7.1f} MB/s   "
-    if workers:
-        peaks = ", ".join(f"{p:.0f}" for p in workers_peak(r, workers))
-        text += f"peak RSS per worker {peaks} MiB, client {r['peak_child_mib']:.0f} MiB"
-        text += f" (cluster start {r['setup_seconds']:.1f} s, not counted)"
-    else:
-        text += f"peak RSS {r['peak_tree_mib']:.0f} MiB"
-    print(f"{text}   [{r['load']}]", flush=True)
+def config_for(folder: Path, years: dict, compute: str) -> Path:
+    """A config whose fit windows fit the benchmark's short runs, figures off, with the given [compute] lines."""
+    a, o = years["abrupt"], years["onepct"]
+    half = max(3, a // 2)
+    shortest = min(years["historical"] + years["scenario"], a, o, years["control"])
+    text = (f"[extraction]\nfit_years = [1, {a}]\nearly_years = [1, {half}]\nlate_years = [{half + 1}, {a}]\n"
+            f"tcr_years = [{max(1, o - 19)}, {o}]\nmin_control_years = {min(30, shortest)}\n\n"
+            f"[output]\nfigures = false\n\n{compute}")
+    path = folder / f"bench-{abs(hash(text))}.toml"
+    path.write_text(text)
+    return path
+
+
+def timed(command: list[str], cwd: Path) -> dict:
+    """Wall and CPU seconds of a command's whole process tree, and the peak RSS of each of its processes.
+
+    CPU seconds are polled per process (worker processes of a pool are not all reaped by the command itself).
+    """
+    start = time.perf_counter()
+    proc = subprocess.Popen(command, cwd=cwd, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
+    poller = TreePoller(proc.pid)
+    poller.start()
+    _, err = proc.communicate()
+    poller.stop.set()
+    poller.join()
+    wall = time.perf_counter() - start
+    if proc.returncode != 0:
+        raise RuntimeError(f"{' '.join(command)} failed ({proc.returncode}):\n{err[-3000:]}")
+    cpu = sum(poller.cpu_by_pid.values())
+    workers = sorted((v / MiB for pid, v in poller.peak_by_pid.items() if pid != proc.pid), reverse=True)
+    return {"wall": wall, "cpu": cpu, "workers_mib": workers, "load": os.getloadavg()[0]}
+
+
+def floor(archive: Path, processes: int, folder: Path) -> dict:
+    """netCDF4 read + decompress of every needed file, the files dealt to `processes` processes (largest first)."""
+    files = sorted(needed_files(archive), key=lambda p: p.stat().st_size, reverse=True)
+    shares = [files[i::processes] for i in range(processes)]
+    lists = []
+    for i, share in enumerate(shares):
+        listing = folder / f"floor-share-{i}.txt"
+        listing.write_text("\n".join(map(str, share)))
+        lists.append(listing)
+    before = resource.getrusage(resource.RUSAGE_CHILDREN)
+    start = time.perf_counter()
+    procs = [subprocess.Popen([sys.executable, str(HERE), "--child-read", str(listing)]) for listing in lists]
+    codes = [p.wait() for p in procs]
+    wall = time.perf_counter() - start
+    after = resource.getrusage(resource.RUSAGE_CHILDREN)
+    if any(codes):
+        raise RuntimeError(f"floor readers failed: {codes}")
+    cpu = (after.ru_utime - before.ru_utime) + (after.ru_stime - before.ru_stime)
+    return {"wall": wall, "cpu": cpu, "workers_mib": [], "load": os.getloadavg()[0]}
+
+
+def child_read(listing: Path) -> None:
+    """One floor process: read and decompress its files, whole storage chunks per read, no masking."""
+    import netCDF4
+
+    for line in listing.read_text().splitlines():
+        path = Path(line)
+        with netCDF4.Dataset(path) as nc:
+            var = nc.variables[path.name.split("_", 1)[0]]
+            var.set_auto_maskandscale(False)
+            if var.ndim < 3:
+                var[...]
+                continue
+            chunking = var.chunking()
+            per_chunk = chunking[0] if isinstance(chunking, list) else 1
+            step_bytes = var[0].nbytes
+            step = max(per_chunk, (64 * MiB // (step_bytes * per_chunk)) * per_chunk)
+            for lo in range(0, var.shape[0], step):
+                var[lo:lo + step]
+
+
+def extract(archive: Path, config: Path, out: Path) -> dict:
+    shutil.rmtree(out, ignore_errors=True)
+    command = [sys.executable, "-m", "sensemble.cli", "extract", str(archive), "--out", str(out), "--config",
+               str(config), "--force", "--quiet"]
+    return timed(command, out.parent)
 
 
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--grid", default="180x360")
-    parser.add_argument("--models", type=int, default=1)
-    parser.add_argument("--years", default=years_text(parse_years("")))
-    parser.add_argument("--dir", default="/tmp/sensemble-bench")
-    parser.add_argument("--memory-test", action="store_true", help="also 2 processes on 2× years and 2× models")
-    parser.add_argument("--worker-mmap-threshold", type=int, default=0, metavar="BYTES",
-                        help="also run the process pools with MALLOC_MMAP_THRESHOLD_=BYTES in the workers")
+    parser.add_argument("--workers", type=int, default=os.cpu_count() or 1, help="N (default: the machine's cores)")
+    parser.add_argument("--years", default=DEFAULT_YEARS, help="run lengths of each model, ROLE=N,...")
+    parser.add_argument("--dir", default="/tmp/sensemble-bench-scale")
+    parser.add_argument("--layouts", default=",".join(LAYOUTS))
+    parser.add_argument("--memory", action="store_true", help="also kind processes on 2× years and 2× models")
+    parser.add_argument("--only", default="floor1,floorN,default,processes,threads",
+                        help="columns to measure (e.g. default,processes with another installation's python, to "
+                        "measure an earlier version: its default is that version's)")
+    parser.add_argument("--child-read", help=argparse.SUPPRESS)
     args = parser.parse_args()
-    years = parse_years(args.years)
-    grid = tuple(int(g) for g in args.grid.lower().split("x"))
-    folder = Path(args.dir)
-    archive = archive_for(folder, grid, args.models, years)
-    mb = archive_bytes(archive) / 1e6
-    out = folder / "out-scale"
-    print(f"archive: {archive} — {len(needed_files(archive))} files, {mb:.0f} MB on disk")
-
-    floor = measure("read", archive, out, years)
-    report("floor: netCDF4 read + decompress", floor, mb)
-    threads = measure("extract", archive, out, years, "threads:1")
-    report("extractor, threads, 1 worker", threads, mb)
-    one = measure("extract", archive, out, years, "processes:1")
-    report("extractor, processes, 1 worker", one, mb, 1)
-    two = measure("extract", archive, out, years, "processes:2")
-    report("extractor, processes, 2 workers", two, mb, 2)
-    print(f"scaling 1 → 2 processes: ×{one['seconds'] / two['seconds']:.2f} (ideal ×2 on two idle cores); "
-          f"2 processes / floor: {two['seconds'] / floor['seconds']:.2f}; "
-          f"1 thread / floor: {threads['seconds'] / floor['seconds']:.2f}")
-
-    if args.worker_mmap_threshold:
-        # distributed's nanny starts workers with MALLOC_TRIM_THRESHOLD_=65536, which freezes glibc's mmap
-        # threshold at 128 kB: every HDF5 decompression buffer and chunk is then a fresh mmap, zero-filled
-        # page by page (reading one 1° file took 0.8 s in a worker against 0.5 s in a plain process).
-        for workers in (1, 2):
-            r = measure("extract", archive, out, years, f"processes:{workers}:{args.worker_mmap_threshold}")
-            report(f"  same, MALLOC_MMAP_THRESHOLD_={args.worker_mmap_threshold}, {workers} worker(s)", r, mb,
-                   workers)
-    if not args.memory_test:
+    if args.child_read:
+        child_read(Path(args.child_read))
         return
-    base = max(workers_peak(two, 2))
-    for label, other_years, models in (("2× years", {k: 2 * v for k, v in years.items()}, args.models),
-                                       ("2× models", years, 2 * args.models)):
-        other = archive_for(folder, grid, models, other_years)
-        r = measure("extract", other, out, other_years, "processes:2")
-        report(f"extractor, processes, 2 workers, {label}", r, archive_bytes(other) / 1e6, 2)
-        print(f"    largest worker peak {100 * (max(workers_peak(r, 2)) / base - 1):+.1f} % against the base archive")
+
+    n = args.workers
+    years = parse_years(args.years)
+    folder = Path(args.dir)
+    folder.mkdir(parents=True, exist_ok=True)
+    work = folder / "runs"
+    work.mkdir(exist_ok=True)
+    bases = {models: archive_for(folder, GRID, models, years) for models in (1, 2)}
+    columns = {
+        "floor1": ("floor, 1 process", lambda a: floor(a, 1, work)),
+        "floorN": (f"floor, {n} processes", lambda a: floor(a, n, work)),
+        "default": ("extract, default", lambda a: extract(a, config_for(work, years, ""), work / "out")),
+        "processes": (f"extract, processes ×{n}", lambda a: extract(
+            a, config_for(work, years, f'[compute]\nkind = "processes"\nworkers = {n}\n'), work / "out")),
+        "threads": (f"extract, threads ×{n}", lambda a: extract(
+            a, config_for(work, years, f'[compute]\nkind = "threads"\nworkers = {n}\n'), work / "out")),
+    }
+    columns = {columns[key][0]: columns[key][1] for key in args.only.split(",")}
+    print(f"{n} workers; 64×128 grid, years {args.years}; marginal = (2 models) − (1 model), whole processes; "
+          "load = 1-minute load average after the run (the machine is shared)")
+    for layout in args.layouts.split(","):
+        archives = {models: in_layout(base, layout) for models, base in bases.items()}
+        mb = {models: sum(p.stat().st_size for p in needed_files(a)) / 1e6 for models, a in archives.items()}
+        marginal_mb = mb[2] - mb[1]
+        print(f"\n{LAYOUTS[layout][0]}: {mb[1]:.0f} MB (1 model), {mb[2]:.0f} MB (2 models), marginal {marginal_mb:.0f} MB")
+        print(f"  {'':<26}{'1 model':>9}{'2 models':>9}{'marginal':>10}{'MB/s':>8}{'CPU s':>8}{'/ floor N':>10}  load")
+        floor_n = None
+        for label, run in columns.items():
+            one, two = run(archives[1]), run(archives[2])
+            marginal = two["wall"] - one["wall"]
+            cpu = two["cpu"] - one["cpu"]
+            if label.startswith(f"floor, {n} "):
+                floor_n = marginal
+            ratio = f"{marginal / floor_n:10.2f}" if floor_n and not label.startswith("floor") else " " * 10
+            print(f"  {label:<26}{one['wall']:8.1f}s{two['wall']:8.1f}s{marginal:9.1f}s"
+                  f"{marginal_mb / max(marginal, 1e-9):8.0f}{cpu:8.1f}{ratio}  {one['load']:.1f}/{two['load']:.1f}",
+                  flush=True)
+    if args.memory:
+        memory_test(folder, years, n, work)
+
+
+def memory_test(folder: Path, years: dict, n: int, work: Path) -> None:
+    """Peak RSS of the largest worker of kind processes as the years and the models double (goal: ± 10 %)."""
+    compute = f'[compute]\nkind = "processes"\nworkers = {n}\n'
+    cases = {"base": (years, 1), "2× years": ({k: 2 * v for k, v in years.items()}, 1), "2× models": (years, 2)}
+    print(f"\npeak RSS of the largest worker, kind processes ×{n} (the demo generator's layout):")
+    base = None
+    for label, (case_years, models) in cases.items():
+        archive = archive_for(folder, GRID, models, case_years)  # the demo generator's own layout
+        r = extract(archive, config_for(work, case_years, compute), work / "out")
+        peak = max(r["workers_mib"][:n]) if r["workers_mib"] else float("nan")
+        base = base or peak
+        print(f"  {label:<10} {peak:6.0f} MiB ({100 * (peak / base - 1):+.1f} %)  {r['wall']:.1f} s  load {r['load']:.1f}",
+              flush=True)
 
 
 if __name__ == "__main__":

@@ -190,7 +190,7 @@ def main() -> None:
     years = parse_years(args.years)
     folder = Path(args.dir)
     folder.mkdir(parents=True, exist_ok=True)
-    work = folder / "runs"
+    work = folder / f"runs-{os.getpid()}"  # each benchmark process its own output folders
     work.mkdir(exist_ok=True)
     bases = {models: archive_for(folder, GRID, models, years) for models in (1, 2)}
     columns = {

@@ -216,12 +216,13 @@ def main() -> None:
             one, two = run(archives[1]), run(archives[2])
             marginal = two["wall"] - one["wall"]
             cpu = two["cpu"] - one["cpu"]
-            if label.startswith(f"floor, {n} "):
+            if label.startswith(f"floor, {n} ") and marginal > 0:
                 floor_n = marginal
-            ratio = f"{marginal / floor_n:10.2f}" if floor_n and not label.startswith("floor") else " " * 10
-            print(f"  {label:<26}{one['wall']:8.1f}s{two['wall']:8.1f}s{marginal:9.1f}s"
-                  f"{marginal_mb / max(marginal, 1e-9):8.0f}{cpu:8.1f}{ratio}  {one['load']:.1f}/{two['load']:.1f}",
-                  flush=True)
+            usable = marginal > 0  # a negative marginal time: the machine's load moved more than the work did
+            ratio = f"{marginal / floor_n:10.2f}" if usable and floor_n and not label.startswith("floor") else " " * 10
+            rate = f"{marginal_mb / marginal:8.0f}" if usable else f"{'n/a':>8}"
+            print(f"  {label:<26}{one['wall']:8.1f}s{two['wall']:8.1f}s{marginal:9.1f}s{rate}{cpu:8.1f}{ratio}  "
+                  f"{one['load']:.1f}/{two['load']:.1f}", flush=True)
     if args.memory:
         memory_test(folder, years, n, work)
 

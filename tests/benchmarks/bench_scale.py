@@ -39,30 +39,6 @@ if __package__ in (None, ""):  # run as a script: make `tests` importable
 from tests.benchmarks.measure import MiB, _Poller, archive_for, load, needed_files, parse_years  # noqa: E402
 
 
-class TreePoller(_Poller):
-    """Peak RSS per process of a tree, and the CPU seconds (user + sys) each process had used when last seen."""
-
-    def __init__(self, pid: int):
-        super().__init__(pid)
-        self.cpu_by_pid: dict[int, float] = {}
-
-    def run(self) -> None:
-        import psutil
-
-        while not self.stop.is_set():
-            try:
-                procs = [self.root] + self.root.children(recursive=True)
-            except psutil.Error:
-                break
-            for proc in procs:
-                try:
-                    rss, times = proc.memory_info().rss, proc.cpu_times()
-                except psutil.Error:
-                    continue
-                self.peak_by_pid[proc.pid] = max(self.peak_by_pid.get(proc.pid, 0), rss)
-                self.cpu_by_pid[proc.pid] = times.user + times.system
-            self.stop.wait(self.interval)
-
 HERE = Path(__file__).resolve()
 GRID = (64, 128)
 DEFAULT_YEARS = "control=100,abrupt=60,onepct=60,historical=20,scenario=20"
@@ -109,7 +85,7 @@ def timed(command: list[str], cwd: Path) -> dict:
     """
     start = time.perf_counter()
     proc = subprocess.Popen(command, cwd=cwd, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
-    poller = TreePoller(proc.pid)
+    poller = _Poller(proc.pid)
     poller.start()
     _, err = proc.communicate()
     poller.stop.set()

@@ -97,6 +97,7 @@ class _Poller(threading.Thread):
         self.peak_total = 0
         self.peak_single = 0
         self.peak_by_pid: dict[int, int] = {}
+        self.cpu_by_pid: dict[int, float] = {}  # CPU seconds (user + sys) of each process when last seen
         self.stop = threading.Event()
 
     def run(self) -> None:
@@ -108,9 +109,10 @@ class _Poller(threading.Thread):
             total = 0
             for proc in procs:
                 try:
-                    rss = proc.memory_info().rss
+                    rss, times = proc.memory_info().rss, proc.cpu_times()
                 except psutil.Error:
                     continue
+                self.cpu_by_pid[proc.pid] = times.user + times.system
                 total += rss
                 self.peak_by_pid[proc.pid] = max(self.peak_by_pid.get(proc.pid, 0), rss)
                 self.peak_single = max(self.peak_single, rss)

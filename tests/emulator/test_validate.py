@@ -58,3 +58,12 @@ def test_validation_table_has_summary_row(smooth_ensemble):
     assert last["end_rmse"] == pytest.approx(summary["end_rmse"])
     assert last["end_error"] == pytest.approx(summary["end_bias"])
     assert last["end_z"] == pytest.approx(summary["mean_z"])
+
+
+def test_errors_and_standardized_errors_share_a_sign(smooth_ensemble):
+    # validation.csv convention (issue 10): end_error and end_z are both predicted − actual, so each run's error
+    # and z, and the ensemble's bias and mean z, have the same sign (common practice, no source).
+    _, per_run, summary = smooth_ensemble
+    np.testing.assert_array_equal(np.sign(per_run["end_error"]), np.sign(per_run["end_z"]))
+    np.testing.assert_allclose(per_run["end_z"], per_run["end_error"] / per_run["end_sd"], rtol=1e-12)
+    assert np.sign(summary["end_bias"]) == np.sign(summary["mean_z"])

@@ -55,3 +55,9 @@ def test_unlisted_scenarios_are_never_opened(archive, tmp_path):
         assert nc.groups["scen-chained"].getncattr("chain") == "hist-like;scen-chained"
     everything = extract(archive, tmp_path / "all", SETTINGS, progress=False, figures=False)
     assert [f.what for f in everything.failures] == ["scen-left"]
+
+
+def test_batch_entry_importable_from_the_stage():
+    from sensemble.extractor import extract as from_stage
+
+    assert from_stage is extract

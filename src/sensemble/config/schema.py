@@ -13,12 +13,16 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from sensemble.compute import ComputeSettings
+from sensemble.contract.errors import SensembleError
 from sensemble.emulator.settings import EmulatorSettings, PredictionSettings
 from sensemble.extractor.settings import ExtractionSettings
 
 
-class ConfigError(ValueError):
-    """A config that cannot be used; the message is one line naming the file, key and fix."""
+class ConfigError(SensembleError, ValueError):
+    """A config that cannot be used; the message is one line naming the file, key and fix.
+
+    One of the project's errors (`SensembleError`, one line), and still a `ValueError` for callers that catch that.
+    """
 
 
 @dataclass(frozen=True)

@@ -23,12 +23,18 @@ import dask
 import dask.array as dask_array
 import netCDF4
 import numpy as np
+from xarray.backends.locks import HDF5_LOCK, combine_locks
 
 from .means import weighted_block_mean
 
 # One lock per process around netCDF-C calls: the library is not thread-safe. Worker processes each have
 # their own, so they read in parallel; threads of one process take turns reading and reduce in parallel.
-NETCDF_LOCK = threading.Lock()
+# The lock includes xarray's own HDF5 lock, which xarray takes around its netCDF-C calls (files opened for the
+# catalogue, the chunked path, packed values): with a lock of our own only, a thread reading here and one inside
+# xarray could be in netCDF-C at once — an intermittent segmentation fault of the thread pool. `_FILE_TASK_LOCK`
+# alone serialises the file tasks' own xarray decoding (which takes the HDF5 lock itself; same order, no deadlock).
+_FILE_TASK_LOCK = threading.Lock()
+NETCDF_LOCK = combine_locks([_FILE_TASK_LOCK, HDF5_LOCK])
 
 #: about this many bytes of decoded values in memory per read (whole storage chunks, at least one)
 SLAB_BYTES = 64 * 2**20
@@ -145,7 +151,7 @@ def _decoded_by_xarray(source: FileSource, index: tuple) -> np.ndarray:
     """Packed or integer values, decoded by xarray itself (the other path's decoding, to the bit)."""
     import xarray as xr
 
-    with NETCDF_LOCK:
+    with _FILE_TASK_LOCK:
         with xr.open_dataset(source.path, engine="netcdf4", decode_times=False, cache=False) as ds:
             return np.asarray(ds[source.variable][index].values)
 

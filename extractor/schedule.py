@@ -13,7 +13,7 @@ import xarray as xr
 from .catalog import RunFiles
 from .diagnose import empty_steps, read_failure
 from .errors import ArchiveError
-from .runs import global_mean_series
+from .runs import close_opened_files, global_mean_series
 
 #: dask config key under which a batch declares how many bytes of input its graph reads, so that the scheduler
 #: chosen outside can size itself (a small batch is not worth starting worker processes for)
@@ -91,8 +91,11 @@ def reduce_runs(runs: list[RunFiles], required: tuple[str, ...], progress: bool,
             continue
         tasks.append(dask.delayed(reduce_run, pure=True)(_Held(lazy), run, dask_key_name=f"reduce-run-{len(tasks)}"))
         opened.append(run)
-    with dask.config.set({BATCH_BYTES_KEY: input_bytes}):
-        values = compute_all(tasks, progress) if tasks else []
+    try:
+        with dask.config.set({BATCH_BYTES_KEY: input_bytes}):
+            values = compute_all(tasks, progress) if tasks else []
+    finally:
+        close_opened_files()
     for run, value in zip(opened, values):
         if isinstance(value, xr.Dataset):
             series[run.label] = value

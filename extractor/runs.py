@@ -22,6 +22,7 @@ from .filemeans import FileSource, lazy_file_means
 from .means import (EARTH_RADIUS_M, MIN_SPHERE_FRACTION, area_weights, find_lat_lon, global_mean, labelled_mean,
                     sphere_fraction)
 from .settings import ExtractionSettings
+from .opened import register
 from .stores import is_url, is_zarr, name_of, open_dataset
 
 #: time chunk of the lazy arrays: ten years of monthly fields
@@ -274,18 +275,6 @@ def _time_chunks(raw: xr.Dataset, variable: str) -> dict:
     return {"time": int(min(years * 12, max(da.sizes.get("time", 1), 1)))}
 
 
-# Files opened lazily for a batch's graph, closed by `close_opened_files` in the thread that opened them once the
-# graph has run. Left to the garbage collector, xarray's file manager may close a file from another thread (a
-# distributed client's event loop) while this thread writes a series file: HDF5 is not thread-safe ("HDF error").
-_OPENED: list[xr.Dataset] = []
-
-
-def close_opened_files() -> None:
-    """Close every file `global_mean_series` opened (call after the batch's graph has been computed)."""
-    while _OPENED:
-        _OPENED.pop().close()
-
-
 def _open_file(path: Path, variable: str, run: RunFiles,
                chunks: dict | None) -> tuple[xr.Dataset, str, bool, float | None]:
     """One file, lazily, with checks on the variable, its units and the calendar; and the offset its values
@@ -297,7 +286,7 @@ def _open_file(path: Path, variable: str, run: RunFiles,
                 raw[variable] = raw[variable].chunk(_time_chunks(raw, variable))
         else:
             raw = open_dataset(path, decode_times=False, chunks=chunks)
-        _OPENED.append(raw)
+        register(raw)
     except Exception as err:  # netCDF4 raises OSError, xarray ValueError; both mean unreadable
         text = str(err).replace(f": {str(path)!r}", "").replace(str(path), "the file")
         raise _error(run, path, f"cannot be read ({type(err).__name__}: {text})",

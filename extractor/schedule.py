@@ -13,7 +13,8 @@ import xarray as xr
 from .catalog import RunFiles
 from .diagnose import empty_steps, read_failure
 from .errors import ArchiveError
-from .runs import close_opened_files, global_mean_series
+from .opened import close_opened_files
+from .runs import global_mean_series
 
 #: dask config key under which a batch declares how many bytes of input its graph reads, so that the scheduler
 #: chosen outside can size itself (a small batch is not worth starting worker processes for)

@@ -25,6 +25,7 @@ from .ecs_interval import bootstrap_ecs, gregory_ecs_interval
 from .flags import ECS_UNBOUNDED
 from .gregory import (ControlVariability, FitWindowError, GregoryFit, component_feedbacks, gregory_fit, odr_fit,
                       quadratic_fit, segment_fits)
+from .regressor_noise import corrected_fit
 from .series import series_group
 from .settings import ExtractionSettings
 from .transient import tcr as transient_response
@@ -101,8 +102,13 @@ def _noise(residuals: xr.Dataset, name: str) -> float | None:
 
 
 def ecs_intervals(fit: GregoryFit, late: GregoryFit, dT, dN, settings: ExtractionSettings,
-                  flags: list[str]) -> dict:
-    """``ecs_eff_q05/q95`` and ``ecs_late_q05/q95`` by the configured method; an open or missing one is flagged."""
+                  flags: list[str], control: ControlVariability | None = None) -> dict:
+    """``ecs_eff_q05/q95`` and ``ecs_late_q05/q95`` by the configured method; an open or missing one is flagged.
+
+    With the control's variability, Fieller's ``ecs_late`` interval is made around the late fit corrected for
+    the noise in ΔT (extractor.regressor_noise; over the late segment ΔT spans little and that noise pulls the
+    OLS slope by a third of its standard error). The ``ecs_late`` column itself stays the OLS value.
+    """
     if settings.ecs_interval == "block_bootstrap":
         def interval(years):
             return bootstrap_ecs(dT, dN, years=years, block=settings.bootstrap_block,
@@ -111,6 +117,8 @@ def ecs_intervals(fit: GregoryFit, late: GregoryFit, dT, dN, settings: Extractio
         ecs, ecs_late = interval(settings.fit_years), interval(settings.late_years)
     else:
         ecs = gregory_ecs_interval(fit, settings.forcing_ratio)
+        if control is not None:
+            late = corrected_fit(late, dT, dN, settings.late_years, control, settings.forcing_ratio)
         ecs_late = gregory_ecs_interval(late, settings.forcing_ratio)
     values = {}
     for name, (low, high) in (("ecs_eff", ecs), ("ecs_late", ecs_late)):
@@ -154,7 +162,7 @@ def fit_row(unit: Unit, abrupt: xr.Dataset | None, tcr_value: float | None, cont
             quad = quadratic_fit(dT, dN, years=settings.fit_years, control=variability)
             keys = ("fit_years", "late_years") + (("bootstrap_block",) if settings.ecs_interval == "block_bootstrap"
                                                   else ())
-            values.update(ecs_intervals(fit, seg.late, dT, dN, settings, flags))
+            values.update(ecs_intervals(fit, seg.late, dT, dN, settings, flags, variability))
         except FitWindowError as err:
             raise run_error(err, unit.abrupt, abrupt, _short_run_hint(abrupt, settings, keys)) from None
         values.update(erf_4x=fit.erf, erf_4x_se=fit.erf_se, feedback=fit.feedback, feedback_se=fit.feedback_se,

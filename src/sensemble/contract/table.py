@@ -26,12 +26,18 @@ TEXT_COLUMNS = ("model", "member", "flags", "mip_era", "origin")
 ECS_INTERVAL_METHODS = {
     "fieller": "Fieller interval of the ratio -erf / (forcing_ratio * feedback), from the Gregory fit's covariance "
                "under AR(1) internal variability (estimated from the control) plus the error of the control drift "
-               "line subtracted from the run",
+               "line subtracted from the run; for ecs_late, around the late fit corrected for the noise in dT (errors "
+               "in variables)",
     "block_bootstrap": "percentiles of a circular moving-block bootstrap over the run's years (the former method: "
                        "it under-covers, and cannot see the drift line's error)",
 }
 #: the long name's reference to the method
 _INTERVAL = "of the 90 % interval (method: global attribute ecs_interval_method)"
+#: what the Fieller interval of ecs_late adds: it is made around the late fit corrected for the noise in dT, so it
+#: need not be centred on the ecs_late column (the OLS value), which it may on rare occasions leave out
+_LATE_FIELLER = ("made around the late fit corrected for the noise in dT (errors in variables), not around the OLS "
+                 "ecs_late")
+_LATE_CENTRE = f"; by the fieller method {_LATE_FIELLER}"
 
 #: units and long names of the numeric columns
 COLUMN_META = {
@@ -56,8 +62,8 @@ COLUMN_META = {
     "erf_4x_odr": ("W m-2", "erf_4x from an orthogonal-distance (errors-in-variables) fit"),
     "feedback_odr": ("W m-2 K-1", "feedback from an orthogonal-distance (errors-in-variables) fit"),
     "ecs_eff_odr": ("K", "ecs_eff from an orthogonal-distance (errors-in-variables) fit"),
-    "ecs_late_q05": ("K", f"lower end (5 %) of ecs_late {_INTERVAL}"),
-    "ecs_late_q95": ("K", f"upper end (95 %) of ecs_late {_INTERVAL}; inf: no upper bound"),
+    "ecs_late_q05": ("K", f"lower end (5 %) of ecs_late {_INTERVAL}{_LATE_CENTRE}"),
+    "ecs_late_q95": ("K", f"upper end (95 %) of ecs_late {_INTERVAL}{_LATE_CENTRE}; inf: no upper bound"),
 }
 TEXT_META = {
     "model": "source_id of the model",
@@ -89,6 +95,8 @@ def column_long_name(column: str, *, tcr_years: tuple[int, int] | None = None,
         end, of = _INTERVAL_ENDS[column]
         text = f"{end} of the 90 % interval of {of}, {ECS_INTERVAL_METHODS[ecs_interval]} (global attribute " \
                "ecs_interval_method)"
+        if of == "ecs_late" and ecs_interval == "fieller":
+            text += f"; {_LATE_FIELLER}"
         return text + ("; inf: no upper bound" if end.startswith("upper") else "")
     return COLUMN_META[column][1]
 

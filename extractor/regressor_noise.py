@@ -17,6 +17,10 @@ together over the whole window. The cross moment is had from two univariate ones
 4 s m_TN = m(N + sT) − m(N − sT) with s = sd(N)/sd(T) (common practice, no source), so every moment is an AR(1)
 expectation like those of :mod:`extractor.serial`.
 
+Left out of the covariance: the estimation error of m_TT and m_TN themselves. In the coverage benchmark (250-year
+controls, lag-1 0.5) the standardized slope errors with estimated moments have 3–5 % more variance than with the
+true ones.
+
 Used for the ``ecs_late`` interval (extractor.science.ecs_intervals), chosen by measured coverage
 (tests/benchmarks/coverage_extraction.py, figures in its docstring and the README). Not for ``ecs_eff``: over years
 1–150 ΔT spans several kelvin, the pull is a tenth of a standard error, and the correction measured no better there.

@@ -17,9 +17,9 @@ together over the whole window. The cross moment is had from two univariate ones
 4 s m_TN = m(N + sT) − m(N − sT) with s = sd(N)/sd(T) (common practice, no source), so every moment is an AR(1)
 expectation like those of :mod:`extractor.serial`.
 
-Left out of the covariance: the estimation error of m_TT and m_TN themselves. In the coverage benchmark (250-year
-controls, lag-1 0.5) the standardized slope errors with estimated moments have 3–5 % more variance than with the
-true ones.
+The covariance carries the estimation error of the moments themselves too: in the coverage benchmark (250-year
+controls, lag-1 0.5) the standardized slope errors with estimated moments had 3–5 % more variance than with the
+true ones when it was left out.
 
 Used for the ``ecs_late`` interval (extractor.science.ecs_intervals), chosen by measured coverage
 (tests/benchmarks/coverage_extraction.py, figures in its docstring and the README). Not for ``ecs_eff``: over years
@@ -73,12 +73,38 @@ def regressor_moments(control: ControlVariability, years, regressand: str = "rtn
     return m_tt, m_tn
 
 
+def correction_variance(control: ControlVariability, years, slope: float, regressand: str = "rtnt",
+                        regressor: str = "tas") -> float:
+    """Variance of the estimate of m_Tu = m_TN − slope·m_TT from the control: the error it puts in the correction.
+
+    By polarization m_Tu = (m(u + tT) − m(u − tT)) / 4t with u = N − slope·T and t = sd(u)/sd(T), which makes the
+    two combinations uncorrelated, so their errors add. Each moment is its combination's variance times a known
+    factor, and the variance of an AR(1) series' sample variance is 2σ⁴(1 + ρ²)/((1 − ρ²) n) over n years
+    (Bartlett 1946; from memory). The error of the estimated lag-1 is left out.
+    """
+    since_branch = np.arange(int(years[0]), int(years[1]) + 1) - 1
+    n_control = int(control.residuals.sizes["year"])
+    sd_u = control.noise(regressand, slope, regressor).sd
+    sd_t = control.noise(regressor, 0.0, regressor).sd
+    if not (sd_u > 0 and sd_t > 0):
+        return 0.0
+    scale = sd_u / sd_t
+    total = 0.0
+    for shift in (-scale, scale):  # N − (slope − t)T = u + tT, then u − tT
+        noise = control.noise(regressand, slope + shift, regressor)
+        moment = demeaned_moment(since_branch, noise, control.drift_years, control.drift_order)
+        rho2 = float(noise.lag1) ** 2
+        total += moment**2 * 2.0 * (1.0 + rho2) / ((1.0 - rho2) * n_control)
+    return total / (16.0 * scale**2)
+
+
 def corrected_fit(fit: GregoryFit, dT, dN, years, control: ControlVariability,
                   forcing_ratio: float, regressand: str = "rtnt") -> GregoryFit:
     """``fit`` (OLS over ``years``) with the slope and intercept corrected for the noise in ΔT (see the module).
 
-    The covariance is the OLS fit's carried through the correction: to first order the slope's error is the
-    OLS slope's times k = S_xx / (S_xx − m_TT), and the intercept ȳ − λx̄ follows it (the delta method). When
+    The covariance is the OLS fit's carried through the correction — to first order the slope's error is the
+    OLS slope's times k = S_xx / (S_xx − m_TT), and the intercept ȳ − λx̄ follows it (the delta method) — plus
+    the error of the correction itself (:func:`correction_variance`), independent of it (another run). When
     the noise would account for all of ΔT's spread over the window (S_xx ≤ m_TT) the data hold no slope to
     correct: intercept, slope and their covariance are then NaN, and so is any interval made from them.
     """
@@ -93,7 +119,11 @@ def corrected_fit(fit: GregoryFit, dT, dN, years, control: ControlVariability,
     erf = float(y.mean()) - feedback * float(x.mean())
     k = s_xx / (s_xx - m_tt)
     carry = np.array([[1.0, float(x.mean()) * (1.0 - k)], [0.0, k]])
-    cov = carry @ fit.covariance @ carry.T
+    # the run's noise carried through the correction, plus the correction's own error: −δm_Tu / (S_xx − m_TT)
+    # in the slope, and x̄ times its opposite in the intercept ȳ − λx̄
+    along = np.array([-float(x.mean()), 1.0]) / (s_xx - m_tt)
+    cov = (carry @ fit.covariance @ carry.T
+           + correction_variance(control, years, feedback, regressand) * np.outer(along, along))
     return replace(fit, erf=erf, feedback=feedback, ecs_eff=_ecs(erf, feedback, forcing_ratio),
                    erf_se=float(np.sqrt(cov[0, 0])), feedback_se=float(np.sqrt(cov[1, 1])),
                    erf_feedback_cov=float(cov[0, 1]))

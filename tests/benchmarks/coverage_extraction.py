@@ -27,9 +27,9 @@ Run: python tests/benchmarks/bench_coverage.py [--quick]
 Last measured (400 trials per lag, load ~10 on 2 cores, 244 s), coverage of the nominal 90 %, before → after:
 feedback ± 1.645 se 0.58 → 0.89 (lag-1 0.5), 0.36 → 0.90 (0.8); ecs_eff interval 0.80 → 0.90 (tails 2.8 / 7.2 %),
 0.71 → 0.91 (4.0 / 4.8 %); 12 trials through `sensemble extract` match the direct path to 6e-6 K. ecs_late
-interval, Fieller around OLS → around the fit corrected for the noise in ΔT (load 8.4–9.8, 244 s wall, 48 s CPU):
-0.870 (2.5 / 10.5 %) → 0.870 (5.0 / 8.0 %) at lag-1 0.5, 0.912 (2.5 / 6.2 %) → 0.905 (3.3 / 6.3 %) at 0.8, where
-94 (before 54) of 400 intervals are open above; the same correction of ecs_eff 0.893 (3.8 / 7.0 %) and 0.910
+interval, Fieller around OLS → around the fit corrected for the noise in ΔT (load 5.5–7.6, 165 s wall, 50 s CPU):
+0.870 (2.5 / 10.5 %) → 0.877 (4.5 / 7.8 %) at lag-1 0.5, 0.912 (2.5 / 6.2 %) → 0.915 (2.5 / 6.0 %) at 0.8, where
+97 (before 54) of 400 intervals are open above; the same correction of ecs_eff 0.895 (3.5 / 7.0 %) and 0.910
 (4.2 / 4.8 %), not adopted.
 """
 from __future__ import annotations

@@ -8,7 +8,8 @@ import xarray as xr
 from sensemble.contract.flags import ECS_LATE_UNBOUNDED
 from sensemble.extractor.ecs_interval import gregory_ecs_interval
 from sensemble.extractor.gregory import ControlVariability, gregory_fit
-from sensemble.extractor.regressor_noise import corrected_fit, demeaned_moment, regressor_moments
+from sensemble.extractor.regressor_noise import (corrected_fit, correction_variance, demeaned_moment,
+                                                  regressor_moments)
 from sensemble.extractor.science import ecs_intervals
 from sensemble.extractor.serial import AR1Noise
 from sensemble.extractor.settings import ExtractionSettings
@@ -58,7 +59,8 @@ def test_expected_sum_of_squares_matches_monte_carlo_with_the_drift_line_error()
     since_branch = np.arange(LATE[0], LATE[1] + 1) - 1
     predicted = demeaned_moment(since_branch, AR1Noise(SD_T, LAG1), DRIFT_YEARS, 1)
     assert predicted == pytest.approx(observed, rel=0.012)
-    # the AR(1) part alone: σ²(n − Σ_ij ρ^|i−j| / n), Σ_ij ρ^|i−j| = n(1+ρ)/(1−ρ) − 2ρ(1−ρⁿ)/(1−ρ)² (from memory)
+    # the AR(1) part alone: σ²(n − Σ_ij ρ^|i−j| / n) with
+    # Σ_ij ρ^|i−j| = n(1+ρ)/(1−ρ) − 2ρ(1−ρⁿ)/(1−ρ)² (from memory)
     n = since_branch.size
     internal = SD_T**2 * (n - (n * (1 + LAG1) / (1 - LAG1) - 2 * LAG1 * (1 - LAG1**n) / (1 - LAG1) ** 2) / n)
     drift = predicted - internal
@@ -140,3 +142,22 @@ def test_delta_t_flat_within_its_noise_gives_no_late_interval_and_a_flag():
     assert values["ecs_late_q05"] is None and values["ecs_late_q95"] is None
     assert ECS_LATE_UNBOUNDED in flags
     assert values["ecs_eff_q05"] is not None
+
+
+def test_correction_variance_is_the_spread_of_the_moments_over_controls():
+    # The error of m_Tu = m_TN − λ m_TT estimated from a 250-year control: its predicted variance (Bartlett 1946,
+    # from memory: var of an AR(1) sample variance 2σ⁴(1 + ρ²)/((1 − ρ²) n)) against the spread over 300 independent
+    # controls (sd of an sd over 300 draws ≈ 4 %), each with its own linear drift removed
+    rng = np.random.default_rng(8)
+    slope, estimates, predicted = -0.6, [], []
+    for _ in range(300):
+        tas, rtnt = noise_pairs(rng, 250)
+        years = np.arange(250)
+        detrended = {name: ("year", v - np.polyval(np.polyfit(years, v, 1), years))
+                     for name, v in (("tas", tas), ("rtnt", rtnt))}
+        residuals = xr.Dataset(detrended, coords={"year": years + 1}, attrs={"drift_order": 1})
+        control = ControlVariability(residuals, drift_order=1, drift_years=DRIFT_YEARS)
+        m_tt, m_tn = regressor_moments(control, LATE)
+        estimates.append(m_tn - slope * m_tt)
+        predicted.append(correction_variance(control, LATE, slope))
+    assert np.sqrt(np.mean(predicted)) == pytest.approx(np.std(estimates), rel=0.15)

@@ -21,7 +21,8 @@ from dataclasses import dataclass
 import numpy as np
 import xarray as xr
 
-from sensemble.extractor.serial import AR1Noise, drift_covariance, estimate_ar1, ols_sandwich
+from sensemble.extractor.serial import (AR1Noise, cross_covariance, drift_covariance, drift_cross_covariance,
+                                       estimate_ar1, ols_sandwich)
 from sensemble.extractor.settings import ExtractionSettings
 
 _DEFAULTS = ExtractionSettings()
@@ -63,6 +64,12 @@ class ControlVariability:
         design = np.vander(np.arange(z.size, dtype=float), int(self.residuals.attrs.get("drift_order", 1)) + 1,
                            increasing=True)
         return estimate_ar1(z, design)
+
+    def correlation(self, regressand: str, slope_a: float, slope_b: float, regressor: str = "tas") -> float:
+        """Correlation in the control of ``regressand − slope·regressor`` at two slopes (lag 0)."""
+        n, t = (np.asarray(self.residuals[v].values, dtype=np.float64) for v in (regressand, regressor))
+        a, b = n - slope_a * t, n - slope_b * t
+        return float(np.clip((a @ b) / np.sqrt((a @ a) * (b @ b)), -1.0, 1.0))
 
 
 @dataclass(frozen=True)
@@ -119,6 +126,7 @@ class SegmentFits:
     ecs_late: float  # -erf_late / (forcing_ratio * feedback_late)
     early: GregoryFit | None = None  # the two fits, with their standard errors
     late: GregoryFit | None = None
+    feedback_change_se: float = float("nan")  # both fits' errors and their covariance (shared drift line)
 
 
 @dataclass(frozen=True)
@@ -324,6 +332,8 @@ def segment_fits(
     """
     early_fit = gregory_fit(dT, dN, early, forcing_ratio, control)
     late_fit = gregory_fit(dT, dN, late, forcing_ratio, control)
+    cross = _segments_cross(dT, dN, early, late, early_fit, late_fit, control)
+    change_var = early_fit.feedback_se**2 + late_fit.feedback_se**2 - 2.0 * cross
     return SegmentFits(
         feedback_early=early_fit.feedback,
         feedback_late=late_fit.feedback,
@@ -332,7 +342,35 @@ def segment_fits(
         ecs_late=late_fit.ecs_eff,
         early=early_fit,
         late=late_fit,
+        feedback_change_se=float(np.sqrt(max(change_var, 0.0))),
     )
+
+
+def _segments_cross(dT, dN, early, late, early_fit: GregoryFit, late_fit: GregoryFit,
+                    control: ControlVariability | None) -> float:
+    """Covariance of the early and the late slope: errors of adjacent years, and the drift line both share.
+
+    Their error combinations ΔN − λ_e ΔT and ΔN − λ_l ΔT are taken with cross-covariance r·σ_e σ_l ρ^|k|,
+    ρ = √(ρ_e ρ_l) and r their correlation in the control's residuals (r = 1 without the control, where
+    the drift line's share is left out as in :func:`gregory_fit`; common practice, no source).
+    """
+    pairs = [_pairs(dT, dN, years, "feedback change") for years in (early, late)]
+    designs = [np.column_stack([np.ones_like(x), x]) for x, _ in pairs]
+    years = [np.arange(int(y[0]), int(y[1]) + 1) for y in (early, late)]
+    fits = (early_fit, late_fit)
+    if control is not None:
+        noises = [control.noise("rtnt", f.feedback) for f in fits]
+        corr = control.correlation("rtnt", early_fit.feedback, late_fit.feedback)
+    else:
+        noises = [estimate_ar1(y - f.erf - f.feedback * x, d) for (x, y), f, d in zip(pairs, fits, designs)]
+        corr = 1.0
+    lag1 = float(np.sqrt(noises[0].lag1 * noises[1].lag1))
+    c = corr * noises[0].sd * noises[1].sd
+    cov = cross_covariance(designs[0], years[0], designs[1], years[1], c, lag1)
+    if control is not None:
+        cov = cov + drift_cross_covariance(designs[0], years[0] - 1, designs[1], years[1] - 1,
+                                           control.drift_years, control.drift_order, c, lag1)
+    return float(cov[1, 1])
 
 
 def quadratic_fit(dT, dN, years=_DEFAULTS.fit_years, control: ControlVariability | None = None) -> QuadraticFit:

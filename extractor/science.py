@@ -168,7 +168,9 @@ def fit_row(unit: Unit, abrupt: xr.Dataset | None, tcr_value: float | None, cont
         values.update(erf_4x=fit.erf, erf_4x_se=fit.erf_se, feedback=fit.feedback, feedback_se=fit.feedback_se,
                       ecs_eff=fit.ecs_eff, feedback_early=seg.feedback_early,
                       feedback_late=seg.feedback_late, feedback_change=seg.feedback_change, ecs_late=seg.ecs_late,
-                      curvature=quad.curvature, n_years=fit.n_years)
+                      curvature=quad.curvature, n_years=fit.n_years, feedback_early_se=seg.early.feedback_se,
+                      feedback_late_se=seg.late.feedback_se, feedback_change_se=seg.feedback_change_se,
+                      curvature_se=quad.curvature_se)
         if settings.orthogonal_fit:
             # errors in both variables (scipy.odr), noise scales from the control's internal variability
             odr = odr_fit(dT, dN, years=settings.fit_years, forcing_ratio=settings.forcing_ratio,
@@ -177,7 +179,8 @@ def fit_row(unit: Unit, abrupt: xr.Dataset | None, tcr_value: float | None, cont
         comps = component_feedbacks(abrupt, years=settings.fit_years, control=variability)
         if comps is not None:
             values.update(feedback_lw_cs=comps.feedback_lw_cs, feedback_sw_cs=comps.feedback_sw_cs,
-                          feedback_cre=comps.feedback_cre)
+                          feedback_cre=comps.feedback_cre, feedback_lw_cs_se=comps.feedback_lw_cs_se,
+                          feedback_sw_cs_se=comps.feedback_sw_cs_se, feedback_cre_se=comps.feedback_cre_se)
     else:
         flags.append(NO_ABRUPT)
     if unit.onepct is None:

@@ -133,3 +133,32 @@ def drift_covariance(design: np.ndarray, at_years: np.ndarray, segment_years: in
     design = np.asarray(design, dtype=np.float64)
     carry = np.linalg.solve(design.T @ design, design.T @ at)
     return carry @ drift_cov @ carry.T
+
+
+def cross_covariance(design_a: np.ndarray, years_a: np.ndarray, design_b: np.ndarray, years_b: np.ndarray,
+                     covariance: float, lag1: float) -> np.ndarray:
+    """Covariance between the OLS coefficients of two fits over (possibly different) years of one run.
+
+    Fit a's error and fit b's error are taken as jointly stationary with cross-covariance c·ρ^|t − s| at
+    years t and s (c = ``covariance`` at lag 0, ρ = ``lag1``): Cov(β_a, β_b) = A_a Σ_ab A_bᵀ with
+    A = (XᵀX)⁻¹Xᵀ, the cross term of the sandwich of :func:`ols_sandwich` (common practice, no source).
+    """
+    a = np.linalg.solve(design_a.T @ design_a, design_a.T)
+    b = np.linalg.solve(design_b.T @ design_b, design_b.T)
+    lags = np.abs(np.subtract.outer(np.asarray(years_a, dtype=float), np.asarray(years_b, dtype=float)))
+    return a @ (covariance * float(lag1) ** lags) @ b.T
+
+
+def drift_cross_covariance(design_a: np.ndarray, at_a: np.ndarray, design_b: np.ndarray, at_b: np.ndarray,
+                           segment_years: int, order: int, covariance: float, lag1: float) -> np.ndarray:
+    """The drift line's share of :func:`cross_covariance`: one control segment's error enters both fits.
+
+    As :func:`drift_covariance`, for two fits whose error combinations (ΔN − λ_a ΔT and ΔN − λ_b ΔT) have
+    cross-covariance c·ρ^|k| in the control.
+    """
+    segment = np.vander(np.arange(segment_years, dtype=float), order + 1, increasing=True)
+    years = np.arange(segment_years, dtype=float)
+    drift_cross = cross_covariance(segment, years, segment, years, covariance, lag1)
+    carry = [np.linalg.solve(d.T @ d, d.T @ np.vander(np.asarray(at, dtype=float), order + 1, increasing=True))
+             for d, at in ((design_a, at_a), (design_b, at_b))]
+    return carry[0] @ drift_cross @ carry[1].T

@@ -1,10 +1,10 @@
 """Coverage of every interval the tool reports, as one table (not run by pytest).
 
-Runs tests/benchmarks/coverage_extraction.py and, where it exists, tests/benchmarks/coverage_emulator.py; each
+Runs tests/benchmarks/coverage_extraction.py, coverage_segments.py and, where it exists, tests/benchmarks/coverage_emulator.py; each
 exposes ``run(quick: bool) -> list[dict]`` with rows ``what, nominal, measured, detail``. Prints the machine's
 load beside the figures (other work on the machine slows them, it does not change them).
 
-Run: python tests/benchmarks/bench_coverage.py [--quick] [--only extraction|emulator]
+Run: python tests/benchmarks/bench_coverage.py [--quick] [--only extraction|segments|emulator]
 """
 from __future__ import annotations
 
@@ -15,7 +15,8 @@ import sys
 import time
 from pathlib import Path
 
-MODULES = {"extraction": "tests.benchmarks.coverage_extraction", "emulator": "tests.benchmarks.coverage_emulator"}
+MODULES = {"extraction": "tests.benchmarks.coverage_extraction", "segments": "tests.benchmarks.coverage_segments",
+           "emulator": "tests.benchmarks.coverage_emulator"}
 
 
 def _load() -> str:

@@ -99,7 +99,7 @@ def synthetic_trials(rng, n: int, lag1: float):
         abrupt = (287.0 + drift_t[i, parallel] + temp[i] + t_abr[i], drift_n[i, parallel] + net[i] + n_abr[i])
         trials.append({"control": control, "abrupt": abrupt, "feedback": truth.feedback, "ecs_eff": truth.ecs_eff,
                        "ecs_late": truth_late.ecs_eff, "feedback_late": truth_late.feedback,
-                       "erf_late": truth_late.erf, "erf": truth.erf})
+                       "erf_late": truth_late.erf, "erf": truth.erf, "forced": (temp[i], net[i])})
     return trials
 
 

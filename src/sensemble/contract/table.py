@@ -15,7 +15,8 @@ COLUMNS = (
     "n_years", "flags",
 )
 EXTRA_COLUMNS = ("feedback_lw_cs", "feedback_sw_cs", "feedback_cre", "erf_4x_odr", "feedback_odr", "ecs_eff_odr",
-                 "mip_era", "origin", "ecs_late_q05", "ecs_late_q95")
+                 "mip_era", "origin", "ecs_late_q05", "ecs_late_q95", "feedback_early_se", "feedback_late_se",
+                 "feedback_change_se", "curvature_se", "feedback_lw_cs_se", "feedback_sw_cs_se", "feedback_cre_se")
 ALL_COLUMNS = COLUMNS + EXTRA_COLUMNS
 #: columns that hold text; every other column is a number (an empty cell when it could not be computed)
 TEXT_COLUMNS = ("model", "member", "flags", "mip_era", "origin")
@@ -64,6 +65,12 @@ COLUMN_META = {
     "ecs_eff_odr": ("K", "ecs_eff from an orthogonal-distance (errors-in-variables) fit"),
     "ecs_late_q05": ("K", f"lower end (5 %) of ecs_late {_INTERVAL}{_LATE_CENTRE}"),
     "ecs_late_q95": ("K", f"upper end (95 %) of ecs_late {_INTERVAL}{_LATE_CENTRE}; inf: no upper bound"),
+    **{f"{name}_se": (units, f"standard error of {name} (autocorrelated internal variability and drift line error"
+                             + (", and the two segments' covariance)" if name == "feedback_change" else ")"))
+       for name, units in (("feedback_early", "W m-2 K-1"), ("feedback_late", "W m-2 K-1"),
+                           ("feedback_change", "W m-2 K-1"), ("curvature", "W m-2 K-2"),
+                           ("feedback_lw_cs", "W m-2 K-1"), ("feedback_sw_cs", "W m-2 K-1"),
+                           ("feedback_cre", "W m-2 K-1"))},
 }
 TEXT_META = {
     "model": "source_id of the model",
@@ -141,6 +148,13 @@ class SensitivityRow:
     origin: str | None = None
     ecs_late_q05: float | None = None
     ecs_late_q95: float | None = None
+    feedback_early_se: float | None = None
+    feedback_late_se: float | None = None
+    feedback_change_se: float | None = None
+    curvature_se: float | None = None
+    feedback_lw_cs_se: float | None = None
+    feedback_sw_cs_se: float | None = None
+    feedback_cre_se: float | None = None
 
     def __post_init__(self):
         # plain Python numbers (numpy scalars do not survive JSON), whole years as int

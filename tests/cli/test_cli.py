@@ -245,6 +245,29 @@ def test_emulate_at_points_and_a_distribution_flags_extrapolation(tmp_path_facto
     assert "4 cases" not in (out / LOG_NAME).read_text() and "3 cases predicted" in (out / LOG_NAME).read_text()
 
 
+def test_emulate_a_forcing_pathway_given_on_the_command_line(tmp_path_factory, tmp_path):
+    # --pathway takes a user's forcing file through the parameter route, over the file's own years (issue 11); a
+    # more sensitive case warms more under the same forcing (two-layer energy balance, Held et al. 2010, from memory)
+    batch = shared_batch(tmp_path_factory)
+    assert batch.status == 0, batch.stderr
+    plan = tmp_path / "plan.csv"
+    plan.write_text("year,erf\n" + "".join(f"{y},{4.0 * (1 - 0.97 ** (y - 2000)):.6f}\n" for y in range(2001, 2091)))
+    out = tmp_path / "emulate"
+    status, stdout, stderr = run_cli("emulate", "--from", batch.out / "extract", "--out", out, "--config", batch.config,
+                                     "--pathway", f"forcing_file={plan},name=plan", "--at", "ecs_eff=2.5",
+                                     "--at", "ecs_eff=4.5", "--quiet")
+    assert status == 0 and stdout == "", stderr
+    table = rows(out / "pathways.csv")
+    assert {r["scenario"] for r in table} == {"plan"} and {r["route"] for r in table} == {"parameters"}
+    years = {case: [int(r["calendar_year"]) for r in table if r["case"] == case] for case in ("ecs_eff=2.5",
+                                                                                           "ecs_eff=4.5")}
+    assert years["ecs_eff=2.5"] == list(range(2001, 2091)) == years["ecs_eff=4.5"]
+    end = {r["case"]: float(r["q50"]) for r in table if r["calendar_year"] == "2090"}
+    assert 0.0 < end["ecs_eff=2.5"] < end["ecs_eff=4.5"]
+    assert_usage_error(*run_cli("emulate", "--from", batch.out / "extract", "--out", tmp_path / "bad",
+                                "--pathway", "forcing_file=,name=x"), "--pathway", "give EXP or KEY=VALUE")
+
+
 def test_emulate_bad_usage(tmp_path_factory, tmp_path):
     batch = shared_batch(tmp_path_factory)
     (tmp_path / "empty").mkdir()

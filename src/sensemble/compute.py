@@ -152,7 +152,9 @@ def _job_classes(settings: ComputeSettings):
     jobqueue = _job_queue_module(settings.kind)
     if settings.kind == "slurm":
         return jobqueue.SLURMCluster, jobqueue.slurm.SLURMJob
-    return jobqueue.PBSCluster, jobqueue.pbs.PBSJob
+    from sensemble.pbs_jobs import LogFolderPBSJob
+
+    return jobqueue.PBSCluster, LogFolderPBSJob
 
 
 def render_job_script(settings: ComputeSettings, *, batch: str | None = None,
@@ -280,13 +282,14 @@ def open_compute(settings: ComputeSettings, *, batch: str | None = None,
             client = Client(cluster)
             stack.callback(client.close)
         else:
-            cluster_class, _ = _job_classes(settings)
+            cluster_class, job_class = _job_classes(settings)
             if settings.dashboard_address:
                 scheduler_options = {"dashboard_address": settings.dashboard_address}
             else:
                 scheduler_options = {"dashboard": False}
             try:
-                cluster = cluster_class(scheduler_options=scheduler_options, **_job_kwargs(settings, batch, out_dir))
+                cluster = cluster_class(scheduler_options=scheduler_options, job_cls=job_class,
+                                        **_job_kwargs(settings, batch, out_dir))
             except ValueError as error:
                 raise ComputeError(f"compute kind '{settings.kind}': {_first_line(error)}") from error
             stack.callback(cluster.close)

@@ -85,9 +85,9 @@ def test_run_on_a_batch_scheduler_gives_the_threaded_table(kind, tmp_path, tmp_p
         (batch.out / "extract" / "sensitivity.csv").read_text()
     # the workers ran as jobs of the scheduler, named for the batch
     assert job_name(out.name) in watch.names, watch.names
-    if kind == "slurm":
-        # their logs in the output folder, none in the working folder; the PBS stand-in (qsub over sbatch) reads
-        # no -e/-o from the script and writes its own names in the working folder, where real PBS takes the folder
-        logs = list((out / "worker-logs").iterdir())
-        assert logs and all(p.name.startswith(job_name(out.name)) for p in logs), logs
-        assert not list(tmp_path.glob("slurm-*.out"))
+    # their logs in the output folder, named for the batch (SLURM: NAME-<id>.err/.out from the script's -e/-o; the
+    # PBS stand-in: NAME.e<id>/.o<id>, written where qsub ran, the log folder), and nothing in the working folder
+    logs = list((out / "worker-logs").iterdir())
+    assert logs and all(p.name.startswith(job_name(out.name)) for p in logs), logs
+    assert any(p.stat().st_size for p in logs), "the workers' logs are empty"
+    assert sorted(p.name for p in tmp_path.iterdir() if p.is_file()) == ["cluster.toml"]

@@ -1,9 +1,12 @@
 """Scheduling: the global-mean series of every run of a batch, computed in one dask graph.
 
-The graph has one task per run. Each task opens its run's files, reduces them chunk by chunk and checks the
-result; a failure comes back as the task's value (an `ArchiveError` naming the file), so one bad run never
-stops the graph and nothing is read twice to find the culprit. Which scheduler runs the graph is chosen outside
-(`sensemble.compute`); here it is submitted once, with the progress bar that suits the scheduler.
+On a local scheduler the graph has one task per run: each task reduces its run's files one after another and
+checks the result; a failure comes back as the task's value (an `ArchiveError` naming the file), so one bad run
+never stops the graph. On a distributed client (a local cluster, a scheduler, SLURM/PBS workers) every file's
+read-and-reduce task is a task of the cluster, so any worker takes any file and a batch of a few runs still keeps
+many workers busy; each run is its own future over that one graph, so a failure errs only its own run. Which
+scheduler runs the graph is chosen outside (`sensemble.compute`); here it is submitted once, with the progress
+bar that suits the scheduler.
 """
 from __future__ import annotations
 
@@ -52,6 +55,29 @@ def compute_all(collections: list, progress: bool) -> list:
     return client.gather(futures)
 
 
+def compute_each_on_client(client, collections: list, progress: bool) -> list:
+    """Each collection as its own future over one graph: its value, or the exception that stopped it (as the value).
+
+    One failing task errs only the futures that depend on it; the others run on (common practice with distributed's
+    futures, no source).
+    """
+    from distributed import wait
+
+    futures = client.compute(collections)
+    if progress:
+        from distributed import progress as follow
+
+        follow(futures)
+    wait(futures)
+    values = []
+    for future in futures:
+        try:
+            values.append(future.result())
+        except Exception as err:  # noqa: BLE001 — returned as the value: the caller names the damaged file
+            values.append(err)
+    return values
+
+
 class _Held:
     """Hands a lazy dataset to a task as it is: dask does not make its chunks the task's dependencies."""
 
@@ -73,12 +99,13 @@ def reduce_run(held: _Held, run: RunFiles) -> xr.Dataset | ArchiveError | BaseEx
 
 def reduce_runs(runs: list[RunFiles], required: tuple[str, ...], progress: bool,
                 input_bytes: int | None = None) -> tuple[dict[str, xr.Dataset], dict[str, ArchiveError]]:
-    """Global-mean series of ``runs`` in one graph, one task per run: ``({label: series}, {label: error})``.
+    """Global-mean series of ``runs`` in one graph: ``({label: series}, {label: error})``.
 
     The files are opened here, one after another (the HDF5 library must not open files in several threads
     at once); their values are read in the graph. `input_bytes` (the size of the files the graph reads) is
     declared to the scheduler under `BATCH_BYTES_KEY`.
     """
+    client = distributed_client()
     series, errors, tasks, opened = {}, {}, [], []
     for run in runs:
         try:
@@ -90,14 +117,25 @@ def reduce_runs(runs: list[RunFiles], required: tuple[str, ...], progress: bool,
             errors[run.label] = ArchiveError(f"could not be read ({type(err).__name__}: {err})",
                                              path=";".join(map(str, run.all_files()[:1])), model=run.model)
             continue
-        tasks.append(dask.delayed(reduce_run, pure=True)(_Held(lazy), run, dask_key_name=f"reduce-run-{len(tasks)}"))
+        if client is None:
+            key = f"reduce-run-{len(tasks)}"
+            tasks.append(dask.delayed(reduce_run, pure=True)(_Held(lazy), run, dask_key_name=key))
+        else:  # the run's file tasks go to the cluster as they are (see the module's docstring)
+            tasks.append(lazy)
         opened.append(run)
     try:
         with dask.config.set({BATCH_BYTES_KEY: input_bytes}):
-            values = compute_all(tasks, progress) if tasks else []
+            if not tasks:
+                values = []
+            elif client is None:
+                values = compute_all(tasks, progress)
+            else:
+                values = compute_each_on_client(client, tasks, progress)
     finally:
         close_opened_files()
     for run, value in zip(opened, values):
+        if isinstance(value, xr.Dataset) and client is not None:
+            value = empty_steps(value, run) or value
         if isinstance(value, xr.Dataset):
             series[run.label] = value
         elif isinstance(value, ArchiveError):

@@ -23,6 +23,7 @@ from typing import Iterator
 
 import dask
 
+from sensemble.cluster_config import job_script_exports, quiet_settings
 from sensemble.contract.constraints import Interval, MemorySize, Options, TimeLimit
 from sensemble.extractor.schedule import BATCH_BYTES_KEY
 
@@ -121,7 +122,8 @@ def _job_kwargs(settings: ComputeSettings, batch: str | None = None, out_dir: st
     """Keyword arguments shared by dask-jobqueue's cluster and job classes.
 
     Worker logs go to `log_directory`, else under `out_dir` (`LOG_FOLDER`), else dask-jobqueue's default
-    (the scheduler's own: `slurm-<id>.out` in the folder the command ran from).
+    (the scheduler's own: `slurm-<id>.out` in the folder the command ran from). The job script first exports
+    `sensemble.cluster_config`'s settings for the workers, then runs `job_script_prologue`.
     """
     if settings.cores is None or settings.memory is None:
         raise ComputeError(
@@ -134,7 +136,8 @@ def _job_kwargs(settings: ComputeSettings, batch: str | None = None, out_dir: st
         processes=max(1, settings.cores // settings.threads_per_worker),
         job_name=job_name(batch),
         job_extra_directives=list(settings.job_extra_directives),
-        job_script_prologue=list(settings.job_script_prologue),
+        job_script_prologue=job_script_exports(quiet_settings(bool(settings.dashboard_address)))
+        + list(settings.job_script_prologue),
     )
     optional = dict(
         queue=settings.queue,
@@ -255,6 +258,8 @@ def open_compute(settings: ComputeSettings, *, batch: str | None = None,
     from distributed import Client, LocalCluster
 
     with contextlib.ExitStack() as stack:
+        # the scheduler, the nannies and the workers of a cluster started here check themselves less often
+        stack.enter_context(dask.config.set(quiet_settings(bool(settings.dashboard_address))))
         if settings.kind == "address":
             if not settings.address:
                 raise ComputeError("compute kind 'address' needs address (e.g. \"tcp://host:8786\")")

@@ -9,6 +9,9 @@ uncompressed. Each measurement is a fresh process, timed from outside as a whole
   - `sensemble extract` with no [compute] section (kind "auto": a pool of N worker processes);
   - `sensemble extract` with [compute] kind = "processes", N workers (a local distributed cluster: the path a
     SLURM/PBS cluster's workers take);
+  - `sensemble extract` with kind = "slurm": one SLURM job of N cores, N worker processes (`--only ...,slurm`;
+    needs a SLURM node, e.g. scripts/single-node-slurm.sh; the job's queueing and start are in the time; its CPU
+    seconds are the client's and the scheduler's only: the workers run under slurmd, outside the process tree);
   - `sensemble extract` with kind = "threads", N threads (the default before issue 12).
 The figure compared is the *marginal* time: the 2-model archive's time minus the 1-model archive's, so start-up
 (imports, pool or cluster start, catalogue) cancels and what remains is the cost of one more model's files.
@@ -175,6 +178,9 @@ def main() -> None:
         "default": ("extract, default", lambda a: extract(a, config_for(work, years, ""), work / "out")),
         "processes": (f"extract, processes ×{n}", lambda a: extract(
             a, config_for(work, years, f'[compute]\nkind = "processes"\nworkers = {n}\n'), work / "out")),
+        "slurm": (f"extract, slurm ×{n}", lambda a: extract(
+            a, config_for(work, years, f'[compute]\nkind = "slurm"\ncores = {n}\nmemory = "{2 * n}GiB"\njobs = 1\n'),
+            work / "out")),
         "threads": (f"extract, threads ×{n}", lambda a: extract(
             a, config_for(work, years, f'[compute]\nkind = "threads"\nworkers = {n}\n'), work / "out")),
     }

@@ -41,3 +41,11 @@ def test_workers_of_a_local_cluster_get_the_settings_and_the_user_config_comes_b
         on_workers = client.run(lambda: dask.config.get(PROFILE_KEY))
     assert list(on_workers.values()) == [False]
     assert dask.config.get(PROFILE_KEY) == before
+
+
+def test_the_readme_gives_the_same_variables_for_workers_started_by_hand():
+    from pathlib import Path
+
+    readme = (Path(__file__).resolve().parents[1] / "README.md").read_text()
+    for line in job_script_exports(QUIET):
+        assert line.removeprefix("export ") in readme, line

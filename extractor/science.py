@@ -23,8 +23,9 @@ from .errors import ArchiveError
 from .flags import join_flags, quality_flags
 from .ecs_interval import bootstrap_ecs, gregory_ecs_interval
 from .flags import ECS_UNBOUNDED
-from .gregory import (ControlVariability, FitWindowError, GregoryFit, component_feedbacks, gregory_fit, odr_fit,
+from .gregory import (ControlVariability, FitWindowError, GregoryFit, component_feedbacks, gregory_fit,
                       quadratic_fit, segment_fits)
+from .orthogonal import odr_fit
 from .regressor_noise import corrected_fit
 from .series import series_group
 from .settings import ExtractionSettings

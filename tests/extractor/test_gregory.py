@@ -13,11 +13,10 @@ from sensemble.extractor.gregory import (
     FitWindowError,
     component_feedbacks,
     gregory_fit,
-    noise_scale,
-    odr_fit,
     quadratic_fit,
     segment_fits,
 )
+from sensemble.extractor.orthogonal import noise_scale, odr_fit
 
 YEARS = np.arange(1, 151)
 

@@ -24,7 +24,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy.stats import norm
+from scipy.stats import norm, t as student_t
 
 from sensemble.extractor.gregory import FitWindowError, GregoryFit, _pairs
 from sensemble.extractor.settings import ExtractionSettings
@@ -38,13 +38,18 @@ ECS_INTERVAL_METHOD = ("Fieller interval of the ratio, from the Gregory fit's co
 
 
 def gregory_ecs_interval(fit: GregoryFit, forcing_ratio: float = _DEFAULTS.forcing_ratio,
-                         level: float = 0.90) -> tuple[float, float]:
-    """The :func:`ecs_interval` of a Gregory fit, from its coefficients and their covariance."""
-    return ecs_interval(fit.erf, fit.feedback, fit.covariance, forcing_ratio, level)
+                         level: float = 0.90, dof: float = math.inf) -> tuple[float, float]:
+    """The :func:`ecs_interval` of a Gregory fit, from its coefficients and their covariance.
+
+    The table's intervals take normal quantiles (``dof`` = inf). Student-t quantiles with ``fit.ecs_dof``, for
+    the estimation error of the control's σ and ρ, were measured and not adopted: they over-cover at lag-1 0.8
+    (tests/benchmarks/coverage_extraction.py; README, "Uncertainty of the extracted numbers").
+    """
+    return ecs_interval(fit.erf, fit.feedback, fit.covariance, forcing_ratio, level, dof)
 
 
 def ecs_interval(erf: float, feedback: float, covariance, forcing_ratio: float = _DEFAULTS.forcing_ratio,
-                 level: float = 0.90) -> tuple[float, float]:
+                 level: float = 0.90, dof: float = math.inf) -> tuple[float, float]:
     """Equal-tailed ``level`` interval of ``-erf / (forcing_ratio * feedback)`` (Fieller).
 
     Parameters
@@ -56,6 +61,8 @@ def ecs_interval(erf: float, feedback: float, covariance, forcing_ratio: float =
     forcing_ratio : float
     level : float
         Probability the interval holds the truth (0.90: the 5–95 % interval).
+    dof : float
+        Degrees of freedom of the covariance's estimate: the bound uses Student-t quantiles (normal ones at inf).
 
     Returns
     -------
@@ -71,7 +78,7 @@ def ecs_interval(erf: float, feedback: float, covariance, forcing_ratio: float =
     """
     if not 0 < level < 1:
         raise ValueError(f"interval level must be between 0 and 1; got {level}")
-    z = float(norm.ppf(0.5 + level / 2))
+    z = float(norm.ppf(0.5 + level / 2) if math.isinf(dof) else student_t.ppf(0.5 + level / 2, dof))
     (v_ff, v_fl), (_, v_ll) = np.asarray(covariance, dtype=np.float64)
     # (erf + u·feedback)² ≤ z² (v_ff + 2u v_fl + u² v_ll) with u = forcing_ratio·θ: a u² + 2b u + c ≤ 0
     a = feedback * feedback - z * z * v_ll

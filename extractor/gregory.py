@@ -20,8 +20,8 @@ from dataclasses import dataclass
 import numpy as np
 import xarray as xr
 
-from sensemble.extractor.serial import (AR1Noise, cross_covariance, drift_covariance, drift_cross_covariance,
-                                       estimate_ar1, ols_sandwich)
+from sensemble.extractor.serial import (AR1Noise, contrast_dofs, cross_covariance, drift_covariance,
+                                       drift_cross_covariance, estimate_ar1, ols_sandwich, summed_dof)
 from sensemble.extractor.settings import ExtractionSettings
 
 _DEFAULTS = ExtractionSettings()
@@ -94,6 +94,10 @@ class GregoryFit:
         Textbook OLS standard errors (independent years), for comparison with reference libraries.
     lag1 : float
         Lag-1 autocorrelation of the error process the standard errors assume.
+    feedback_dof, ecs_dof : float
+        Degrees of freedom of the estimated variance of the feedback and of erf + forcing_ratio·ecs·feedback
+        (the quantity Fieller's ECS interval standardizes), from the control's length and its estimated σ
+        and ρ (:func:`extractor.serial.variance_dof`); inf without the control's variability.
     """
 
     erf: float
@@ -107,6 +111,8 @@ class GregoryFit:
     erf_se_ols: float = float("nan")
     feedback_se_ols: float = float("nan")
     lag1: float = float("nan")
+    feedback_dof: float = float("inf")
+    ecs_dof: float = float("inf")
 
     @property
     def covariance(self) -> np.ndarray:
@@ -126,6 +132,7 @@ class SegmentFits:
     early: GregoryFit | None = None  # the two fits, with their standard errors
     late: GregoryFit | None = None
     feedback_change_se: float = float("nan")  # both fits' errors and their covariance (shared drift line)
+    feedback_change_dof: float = float("inf")
 
 
 @dataclass(frozen=True)
@@ -138,6 +145,7 @@ class QuadraticFit:
     curvature_se: float  # autocorrelated internal variability (+ drift line error), as GregoryFit
     n_years: int
     curvature_se_ols: float = float("nan")  # textbook OLS, for comparison with reference libraries
+    curvature_dof: float = float("inf")  # of curvature_se², as GregoryFit.feedback_dof
 
 
 @dataclass(frozen=True)
@@ -233,24 +241,33 @@ def _ols(x: np.ndarray, y: np.ndarray) -> tuple[float, float, float, float, floa
 
 
 def _covariance(design: np.ndarray, resid: np.ndarray, years, control: ControlVariability | None,
-                regressand: str, slope: float) -> tuple[np.ndarray, AR1Noise]:
+                regressand: str, slope: float, contrasts=()) -> tuple[np.ndarray, AR1Noise, list[float]]:
     """Covariance of fitted coefficients: the run's autocorrelated internal variability, plus the drift line's.
 
     Without the control's variability, its AR(1) parameters come from the fit's own residuals and the drift
     line's error is left out. With it, they come from the control (``regressand − slope·tas``, the
-    combination a Gregory fit's error is made of), whose residuals hold no curvature of the response.
+    combination a Gregory fit's error is made of), whose residuals hold no curvature of the response; the
+    degrees of freedom of each ``contrasts`` vector's variance (:func:`extractor.serial.variance_dof`) are
+    returned too (inf without the control).
     """
     if control is None:
         noise = estimate_ar1(resid, design)
-        return ols_sandwich(design, noise), noise
+        return ols_sandwich(design, noise), noise, [float("inf")] * len(contrasts)
     noise = control.noise(regressand, slope)
     since_branch = np.arange(int(years[0]), int(years[1]) + 1) - 1
-    drift = drift_covariance(design, since_branch, control.drift_years, control.drift_order, noise)
-    return ols_sandwich(design, noise) + drift, noise
+
+    def at(lag1: float) -> np.ndarray:
+        shifted = AR1Noise(noise.sd, lag1)
+        return ols_sandwich(design, shifted) + drift_covariance(design, since_branch, control.drift_years,
+                                                                control.drift_order, shifted)
+
+    cov = at(noise.lag1)
+    dofs = contrast_dofs(at, noise.lag1, int(control.residuals.sizes["year"]), contrasts)
+    return cov, noise, dofs
 
 
 def gregory_fit(dT, dN, years=_DEFAULTS.fit_years, forcing_ratio: float = _DEFAULTS.forcing_ratio,
-                control: ControlVariability | None = None, regressand: str = "rtnt") -> GregoryFit:
+                control: ControlVariability | None = None, regressand: str = "rtnt", dof: bool = False) -> GregoryFit:
     """OLS regression of annual ΔN on ΔT over ``years`` (Gregory et al. 2004).
 
     Parameters
@@ -266,6 +283,9 @@ def gregory_fit(dT, dN, years=_DEFAULTS.fit_years, forcing_ratio: float = _DEFAU
         the drift line too. Without it they carry the run's own autocorrelated variability only.
     regressand : str
         Name of ``dN``'s variable in ``control.residuals``.
+    dof : bool
+        Also give ``feedback_dof`` and ``ecs_dof`` (with ``control``): measured for the coverage benchmark and
+        not adopted by the table, so off by default (they triple the covariance's cost).
 
     Returns
     -------
@@ -282,7 +302,9 @@ def gregory_fit(dT, dN, years=_DEFAULTS.fit_years, forcing_ratio: float = _DEFAU
     x, y = _pairs(dT, dN, years, "Gregory fit" if regressand == "rtnt" else f"{regressand} feedback")
     erf, erf_se_ols, feedback, feedback_se_ols, r2 = _ols(x, y)
     design = np.column_stack([np.ones_like(x), x])
-    cov, noise = _covariance(design, y - erf - feedback * x, years, control, regressand, feedback)
+    u = -erf / feedback if feedback != 0 else 0.0  # forcing_ratio·ecs: Fieller's contrast at the estimate
+    cov, noise, dofs = _covariance(design, y - erf - feedback * x, years, control, regressand,
+                                                      feedback, contrasts=([0.0, 1.0], [1.0, u]) if dof else ())
     return GregoryFit(
         erf=erf,
         erf_se=float(np.sqrt(cov[0, 0])),
@@ -295,6 +317,8 @@ def gregory_fit(dT, dN, years=_DEFAULTS.fit_years, forcing_ratio: float = _DEFAU
         erf_se_ols=erf_se_ols,
         feedback_se_ols=feedback_se_ols,
         lag1=noise.lag1,
+        feedback_dof=dofs[0] if dofs else float("inf"),
+        ecs_dof=dofs[1] if dofs else float("inf"),
     )
 
 
@@ -305,14 +329,15 @@ def segment_fits(
     late=_DEFAULTS.late_years,
     forcing_ratio: float = _DEFAULTS.forcing_ratio,
     control: ControlVariability | None = None,
+    dof: bool = False,
 ) -> SegmentFits:
     """Separate Gregory fits over an early and a late window; the late one gives ``ecs_late``.
 
-    Pass ``control`` for standard errors that carry the drift line's error (see :func:`gregory_fit`); for
-    the short early segment it also gives the error process far better than 20 residuals could.
+    Pass ``control`` for standard errors that carry the drift line's error (see :func:`gregory_fit`, also for
+    ``dof``); for the short early segment it also gives the error process far better than 20 residuals could.
     """
-    early_fit = gregory_fit(dT, dN, early, forcing_ratio, control)
-    late_fit = gregory_fit(dT, dN, late, forcing_ratio, control)
+    early_fit = gregory_fit(dT, dN, early, forcing_ratio, control, dof=dof)
+    late_fit = gregory_fit(dT, dN, late, forcing_ratio, control, dof=dof)
     cross = _segments_cross(dT, dN, early, late, early_fit, late_fit, control)
     change_var = early_fit.feedback_se**2 + late_fit.feedback_se**2 - 2.0 * cross
     return SegmentFits(
@@ -324,7 +349,10 @@ def segment_fits(
         early=early_fit,
         late=late_fit,
         feedback_change_se=float(np.sqrt(max(change_var, 0.0))),
+        feedback_change_dof=summed_dof((early_fit.feedback_se**2, early_fit.feedback_dof),
+                                        (late_fit.feedback_se**2, late_fit.feedback_dof)),
     )
+
 
 
 def _segments_cross(dT, dN, early, late, early_fit: GregoryFit, late_fit: GregoryFit,
@@ -354,7 +382,8 @@ def _segments_cross(dT, dN, early, late, early_fit: GregoryFit, late_fit: Gregor
     return float(cov[1, 1])
 
 
-def quadratic_fit(dT, dN, years=_DEFAULTS.fit_years, control: ControlVariability | None = None) -> QuadraticFit:
+def quadratic_fit(dT, dN, years=_DEFAULTS.fit_years, control: ControlVariability | None = None,
+                  dof: bool = False) -> QuadraticFit:
     """Least-squares ΔN = F + λΔT + aΔT²; ``curvature`` = a (> 0: feedback weakening with warming).
 
     ``curvature_se`` as the standard errors of :func:`gregory_fit` (the error process taken at the
@@ -370,7 +399,8 @@ def quadratic_fit(dT, dN, years=_DEFAULTS.fit_years, control: ControlVariability
     resid = y - design @ coef
     s2 = (resid @ resid) / (x.size - 3)
     cov_ols = s2 * np.linalg.inv(design.T @ design)
-    cov, _ = _covariance(design, resid, years, control, "rtnt", float(coef[1] + 2 * coef[2] * x.mean()))
+    cov, _, dofs = _covariance(design, resid, years, control, "rtnt", float(coef[1] + 2 * coef[2] * x.mean()),
+                               contrasts=([0.0, 0.0, 1.0],) if dof else ())
     return QuadraticFit(
         erf=float(coef[0]),
         feedback=float(coef[1]),
@@ -378,6 +408,7 @@ def quadratic_fit(dT, dN, years=_DEFAULTS.fit_years, control: ControlVariability
         curvature_se=float(np.sqrt(cov[2, 2])),
         n_years=int(x.size),
         curvature_se_ols=float(np.sqrt(cov_ols[2, 2])),
+        curvature_dof=dofs[0] if dofs else float("inf"),
     )
 
 

@@ -162,3 +162,48 @@ def drift_cross_covariance(design_a: np.ndarray, at_a: np.ndarray, design_b: np.
     carry = [np.linalg.solve(d.T @ d, d.T @ np.vander(np.asarray(at, dtype=float), order + 1, increasing=True))
              for d, at in ((design_a, at_a), (design_b, at_b))]
     return carry[0] @ drift_cross @ carry[1].T
+
+
+def variance_dof(lag1: float, n_control: int, dlogvar_dlag1: float) -> float:
+    """Degrees of freedom of a variance σ̂²·g(ρ̂) whose σ and ρ were estimated from ``n_control`` AR(1) years.
+
+    A standard error from the control's σ̂ and ρ̂ is itself an estimate; the standardized error of a fitted
+    coefficient is then nearer a Student-t than a normal. Satterthwaite (1946, from memory): a variance
+    estimate V̂ is taken as V·χ²_ν/ν with ν = 2V²/Var(V̂) = 2 / Var(log V̂). For V = σ²·g(ρ) with σ² the
+    marginal variance, Var(log V̂) = [2(1 + ρ²)/(1 − ρ²) + D²(1 − ρ²) + 4ρD] / n, D = d log g / dρ, from
+    Var(ρ̂) = (1 − ρ²)/n (Bartlett 1946; Box & Jenkins, from memory), Var(σ̂²)/σ⁴ = 2(1 + ρ²)/(n(1 − ρ²))
+    (Bartlett 1946, the variance of an AR(1) sample variance) and Cov(log σ̂², ρ̂) = 2ρ/n (the innovation
+    variance's estimate is asymptotically independent of ρ̂ and σ² = σ_ε²/(1 − ρ²); from memory).
+    """
+    rho = float(np.clip(lag1, 0.0, MAX_LAG1))
+    d = float(dlogvar_dlag1)
+    var_log = (2.0 * (1.0 + rho**2) / (1.0 - rho**2) + d * d * (1.0 - rho**2) + 4.0 * rho * d) / float(n_control)
+    return 2.0 / var_log if var_log > 0 else float("inf")
+
+
+def contrast_dofs(covariance_at, lag1: float, n_control: int, contrasts) -> list[float]:
+    """:func:`variance_dof` of each contrast vector c's variance cᵀ·covariance_at(ρ)·c at ρ = ``lag1``.
+
+    ``covariance_at(ρ)`` gives the fit's covariance with the estimated σ and lag-1 ρ; d log V / dρ is taken
+    by a central difference.
+    """
+    step = 1e-4
+    low, high = max(lag1 - step, 0.0), min(lag1 + step, MAX_LAG1)
+    below, above = covariance_at(low), covariance_at(high)
+    dofs = []
+    for c in contrasts:
+        c = np.asarray(c, dtype=np.float64)
+        slope = (np.log(c @ above @ c) - np.log(c @ below @ c)) / (high - low)
+        dofs.append(variance_dof(lag1, n_control, float(slope)))
+    return dofs
+
+
+def summed_dof(*parts: tuple[float, float]) -> float:
+    """Degrees of freedom of V₁ + V₂ + … from (Vᵢ, νᵢ) when the Vᵢ were estimated from one control series.
+
+    Fully correlated estimates: their standard deviations Vᵢ √(2/νᵢ) add, where Satterthwaite (1946, from
+    memory) adds the variances of independent ones; ν = (ΣVᵢ)² / (ΣVᵢ/√νᵢ)².
+    """
+    total = sum(v for v, _ in parts)
+    spread = sum(v / np.sqrt(nu) for v, nu in parts)
+    return float(total**2 / spread**2) if spread > 0 else float("inf")

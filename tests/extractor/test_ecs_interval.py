@@ -3,7 +3,7 @@ import math
 
 import numpy as np
 import pytest
-from scipy.stats import norm
+from scipy.stats import norm, t as student_t
 
 from sensemble.extractor.ecs_interval import ecs_interval, gregory_ecs_interval
 from sensemble.extractor.gregory import gregory_fit
@@ -17,6 +17,15 @@ def test_known_feedback_gives_the_intercept_interval_scaled():
     low, high = ecs_interval(7.0, -1.0, [[0.09, 0.0], [0.0, 0.0]], forcing_ratio=2.0)
     assert low == pytest.approx((7.0 - Z90 * 0.3) / 2.0, rel=1e-12)
     assert high == pytest.approx((7.0 + Z90 * 0.3) / 2.0, rel=1e-12)
+
+
+def test_degrees_of_freedom_give_student_t_bounds():
+    # With the slope known exactly and the covariance estimated with ν degrees of freedom, the interval is the
+    # intercept's Student-t interval divided by −forcing_ratio·λ (quantile from scipy.stats.t)
+    low, high = ecs_interval(7.0, -1.0, [[0.09, 0.0], [0.0, 0.0]], forcing_ratio=2.0, dof=12.0)
+    q = student_t.ppf(0.95, 12.0)
+    assert low == pytest.approx((7.0 - q * 0.3) / 2.0, rel=1e-12)
+    assert high == pytest.approx((7.0 + q * 0.3) / 2.0, rel=1e-12)
 
 
 def test_uncertain_feedback_gives_a_long_upper_tail():

@@ -5,8 +5,8 @@ import statsmodels.api as sm
 import xarray as xr
 
 from sensemble.extractor.gregory import ControlVariability, gregory_fit, segment_fits
-from sensemble.extractor.serial import (AR1Noise, cross_covariance, drift_covariance, drift_cross_covariance,
-                                       estimate_ar1, ols_sandwich)
+from sensemble.extractor.serial import (AR1Noise, contrast_dofs, cross_covariance, drift_covariance,
+                                       drift_cross_covariance, estimate_ar1, ols_sandwich, summed_dof, variance_dof)
 
 
 def ar1(rng, n, lag1, sd=1.0, size=None):
@@ -163,3 +163,62 @@ def test_feedback_change_se_of_a_run_with_its_control():
     early, late = seg.early.feedback_se, seg.late.feedback_se
     assert max(early, late) < seg.feedback_change_se < early + late
     assert seg.feedback_change_se == pytest.approx(np.hypot(early, late), rel=0.1)
+
+
+@pytest.mark.parametrize("lag1", [0.5, 0.8])
+def test_variance_dof_matches_the_spread_of_estimated_slope_variances(lag1):
+    # Satterthwaite's ν = 2 / Var(log V̂) (Satterthwaite 1946, from memory) with Bartlett's (1946) variances of an
+    # AR(1) sample variance and lag-1 estimate: checked against the Monte Carlo spread of log V̂ over 1500
+    # 250-year controls, each giving σ̂ and ρ̂ as the extractor does (sd of a variance over 1500 draws: ~3.7 %)
+    rng = np.random.default_rng(11)
+    x = warming(150)
+    design = np.column_stack([np.ones_like(x), x])
+    drift = np.vander(np.arange(250, dtype=float), 2, increasing=True)
+    controls = ar1(rng, 250, lag1, 0.35, size=1500)
+    residuals = controls - (drift @ np.linalg.lstsq(drift, controls.T, rcond=None)[0]).T
+    variances = np.array([ols_sandwich(design, estimate_ar1(e, drift))[1, 1] for e in residuals])
+    [nu] = contrast_dofs(lambda r: ols_sandwich(design, AR1Noise(0.35, r)), lag1, 250, [[0.0, 1.0]])
+    assert np.var(np.log(variances)) == pytest.approx(2.0 / nu, rel=0.15)  # measured 0.0485 / 0.135 vs 0.0485 / 0.121
+    # the standardized error's variance E[V / V̂] is then that of Student's t with ν degrees of freedom, ν/(ν − 2)
+    # (measured 1.041 / 1.116 against 1.051 / 1.138), not 1
+    true = ols_sandwich(design, AR1Noise(0.35, lag1))[1, 1]
+    assert np.mean(true / variances) == pytest.approx(nu / (nu - 2.0), rel=0.04)
+    # and ρ's share is most of it at 0.8: the σ² term alone, 2(1 + ρ²)/(n(1 − ρ²)), is far below
+    assert 2.0 / nu > 2.0 * 2.0 * (1 + lag1**2) / (250 * (1 - lag1**2))
+
+
+def test_variance_dof_of_a_variance_proportional_to_sigma_squared_alone():
+    # With D = 0 only σ̂² varies: ν = n (1 − ρ²)/(1 + ρ²), Bartlett's (1946) variance of an AR(1) sample variance
+    # (from memory); and n − 1 ≈ n for white noise, the χ² degrees of freedom of a sample variance
+    assert variance_dof(0.6, 250, 0.0) == pytest.approx(250 * (1 - 0.36) / 1.36, rel=1e-12)
+    assert variance_dof(0.0, 250, 0.0) == pytest.approx(250.0, rel=1e-12)
+
+
+def test_summed_dof_of_parts_with_equal_dof_is_that_dof():
+    # Fully correlated estimates of equal relative spread: the sum has that spread too (its identity, no source)
+    assert summed_dof((2.0, 17.0), (5.0, 17.0)) == pytest.approx(17.0, rel=1e-12)
+    # and a part with fewer degrees of freedom lowers the sum's, never below the smallest one's
+    assert 9.0 < summed_dof((2.0, 9.0), (5.0, 40.0)) < 40.0
+
+
+def test_gregory_fit_gives_the_degrees_of_freedom_of_its_variance_when_asked():
+    # For a slowly varying regressor the slope's variance goes as σ²(1 + ρ)/(1 − ρ) (Bretherton et al. 1999, from
+    # memory), so d log V / dρ = 2/(1 − ρ²) and ν follows from variance_dof; the drift line's share moves it a little
+    rng = np.random.default_rng(6)
+    years = np.arange(1, 1001)
+    residuals = xr.Dataset({"tas": ("year", ar1(rng, 1000, 0.7, 0.1)), "rtnt": ("year", ar1(rng, 1000, 0.7, 0.3))},
+                           coords={"year": years}, attrs={"drift_order": 1})
+    variability = ControlVariability(residuals, drift_order=1, drift_years=150)
+    x = warming(150)
+    dN = 6.0 - 1.2 * x + ar1(rng, 150, 0.7, 0.3)
+    fit = gregory_fit(x, dN, (1, 150), control=variability, dof=True)
+    rho = fit.lag1
+    assert fit.feedback_dof == pytest.approx(variance_dof(rho, 1000, 2.0 / (1.0 - rho**2)), rel=0.25)
+    assert np.isfinite(fit.ecs_dof) and fit.ecs_dof > 0
+    # off by default, and without the control's variability there is no control length to count
+    assert gregory_fit(x, dN, (1, 150), control=variability).feedback_dof == np.inf
+    assert gregory_fit(x, dN, (1, 150), dof=True).feedback_dof == np.inf
+    # the change of slope's: between its two segments' (summed_dof of the two variances; its identity, no source)
+    seg = segment_fits(x, dN, (1, 20), (21, 150), control=variability, dof=True)
+    low, high = sorted((seg.early.feedback_dof, seg.late.feedback_dof))
+    assert low <= seg.feedback_change_dof <= high

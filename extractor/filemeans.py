@@ -25,7 +25,8 @@ import netCDF4
 import numpy as np
 from xarray.backends.locks import HDF5_LOCK, combine_locks
 
-from .means import weighted_block_mean
+from .means import labelled_mean, weighted_block_mean
+from .stores import is_url, is_zarr
 
 # One lock per process around netCDF-C calls: the library is not thread-safe. Worker processes each have
 # their own, so they read in parallel; threads of one process take turns reading and reduce in parallel.
@@ -33,8 +34,15 @@ from .means import weighted_block_mean
 # catalogue, the chunked path, packed values): with a lock of our own only, a thread reading here and one inside
 # xarray could be in netCDF-C at once — an intermittent segmentation fault of the thread pool. `_FILE_TASK_LOCK`
 # alone serialises the file tasks' own xarray decoding (which takes the HDF5 lock itself; same order, no deadlock).
-_FILE_TASK_LOCK = threading.Lock()
+_FILE_TASK_LOCK = threading.RLock()  # re-entrant: a run's task may hold it (OPENING_LOCK) around file tasks
 NETCDF_LOCK = combine_locks([_FILE_TASK_LOCK, HDF5_LOCK])
+# Held while a run's task opens its files (xarray reads their metadata without any lock of its own), and while it
+# reads values through xarray's backends: then no other thread of the process is in netCDF-C by way of a file task.
+OPENING_LOCK = _FILE_TASK_LOCK
+
+#: key of a lazy run's ``encoding``: the variables whose means are read through xarray's backends (Zarr stores,
+#: remote files, unusual dims), not by file tasks — the run's task reads those holding `OPENING_LOCK`
+READ_THROUGH_XARRAY = "sensemble_read_through_xarray"
 
 #: about this many bytes of decoded values in memory per read (whole storage chunks, at least one)
 SLAB_BYTES = 64 * 2**20
@@ -167,3 +175,23 @@ def lazy_file_means(sources: list[FileSource], weights: np.ndarray, name: str) -
         for source in sources
     ]
     return parts[0] if len(parts) == 1 else dask_array.concatenate(parts)
+
+
+def file_task_mean(da, weights, files: list, keep: np.ndarray | None):
+    """Lazy global mean of `da` with one read-and-reduce task per local NetCDF file, or None for Zarr stores,
+    remote files and variables with dims other than time and the grid (the general dask reduction,
+    `means.global_mean`, handles those). `files` are (path, steps, dims, offset) in time order; `keep` the
+    positions kept on the run's time axis (None: all)."""
+    grid = tuple(weights.dims)
+    sources = []
+    for path, steps, dims, offset in files:
+        if is_url(path) or is_zarr(path):  # Zarr stores and remote files: read through xarray's backends
+            return None
+        if set(dims) != {"time", *grid} or len(dims) != len(grid) + 1:
+            return None
+        axes = (dims.index("time"), *(dims.index(d) for d in grid))
+        sources.append(FileSource(str(path), str(da.name), int(steps), axes, offset))
+    data = lazy_file_means(sources, np.asarray(weights.values, dtype=np.float64), f"global-mean-{da.name}")
+    if keep is not None:
+        data = data[keep]
+    return labelled_mean(data, da, ("time",))

@@ -18,12 +18,11 @@ from sensemble.contract.flags import ATTRIBUTE_MISMATCH, BRANCH_TIME_UNREADABLE,
 
 from .catalog import RunFiles
 from .errors import ArchiveError
-from .filemeans import FileSource, lazy_file_means
-from .means import (EARTH_RADIUS_M, MIN_SPHERE_FRACTION, area_weights, find_lat_lon, global_mean, labelled_mean,
-                    sphere_fraction)
+from .filemeans import READ_THROUGH_XARRAY, file_task_mean
+from .means import EARTH_RADIUS_M, MIN_SPHERE_FRACTION, area_weights, find_lat_lon, global_mean, sphere_fraction
 from .settings import ExtractionSettings
 from .opened import register
-from .stores import is_url, is_zarr, name_of, open_dataset
+from .stores import name_of, open_dataset
 
 #: time chunk of the lazy arrays: ten years of monthly fields
 DEFAULT_CHUNKS = None  # sized per file: whole years, about CHUNK_BYTES of data per chunk
@@ -225,11 +224,14 @@ def global_mean_series(
             "give the run's global fields (a global mean needs the whole sphere), or leave this run out",
         )
     # one task per file, read and reduced together (`extractor.filemeans`), unless chunks were asked for
-    means = {}
+    means, through_xarray = {}, []
     for v in run.files:
-        mean = _file_task_mean(ds[v], weights, *layout[v]) if chunks is None else None
+        mean = file_task_mean(ds[v], weights, *layout[v]) if chunks is None else None
         means[v] = global_mean(ds[v], weights) if mean is None else mean
+        if mean is None:
+            through_xarray.append(v)
     out = xr.Dataset(means)
+    out.encoding[READ_THROUGH_XARRAY] = tuple(through_xarray)
     if "time_bnds" in ds:
         out["time_bnds"] = ds["time_bnds"]
     out["time"].attrs = dict(ds["time"].attrs)
@@ -239,25 +241,6 @@ def global_mean_series(
         flags = [f for f in out.attrs["flags"].split(";") if f]
         out.attrs["flags"] = ";".join(dict.fromkeys(flags + [flag]))
     return out
-
-
-def _file_task_mean(da: xr.DataArray, weights: xr.DataArray, files: list, keep: np.ndarray | None):
-    """Lazy global mean of `da` with one read-and-reduce task per local NetCDF file, or None for Zarr stores,
-    remote files and variables with dims other than time and the grid (the general dask reduction,
-    `global_mean`, handles those)."""
-    grid = tuple(weights.dims)
-    sources = []
-    for path, steps, dims, offset in files:
-        if is_url(path) or is_zarr(path):  # Zarr stores and remote files: read through xarray's backends
-            return None
-        if set(dims) != {"time", *grid} or len(dims) != len(grid) + 1:
-            return None
-        axes = (dims.index("time"), *(dims.index(d) for d in grid))
-        sources.append(FileSource(str(path), str(da.name), int(steps), axes, offset))
-    data = lazy_file_means(sources, np.asarray(weights.values, dtype=np.float64), f"global-mean-{da.name}")
-    if keep is not None:
-        data = data[keep]
-    return labelled_mean(data, da, ("time",))
 
 
 # ---------------------------------------------------------------------------- files

@@ -1,7 +1,7 @@
 """Scheduling: the global-mean series of every run of a batch, computed in one dask graph.
 
-On a local scheduler the graph has one task per run: each task reduces its run's files one after another and
-checks the result; a failure comes back as the task's value (an `ArchiveError` naming the file), so one bad run
+On a local scheduler the graph has one task per run: each task opens its run's files, reduces them one after
+another and checks the result; a failure comes back as the task's value (an `ArchiveError` naming the file), so one bad run
 never stops the graph. On a distributed client (a local cluster, a scheduler, SLURM/PBS workers) every file's
 read-and-reduce task is a task of the cluster, so any worker takes any file and a batch of a few runs still keeps
 many workers busy; each run is its own future over that one graph, so a failure errs only its own run. Which
@@ -10,14 +10,18 @@ bar that suits the scheduler.
 """
 from __future__ import annotations
 
+from pathlib import Path
+
 import dask
 import xarray as xr
 
 from .catalog import RunFiles
 from .diagnose import empty_steps, read_failure
 from .errors import ArchiveError
-from .opened import close_opened_files
+from .filemeans import OPENING_LOCK, READ_THROUGH_XARRAY
+from .opened import close_opened_files, opened_by_this_task
 from .runs import global_mean_series
+from .stores import is_url
 
 #: dask config key under which a batch declares how many bytes of input its graph reads, so that the scheduler
 #: chosen outside can size itself (a small batch is not worth starting worker processes for)
@@ -78,51 +82,69 @@ def compute_each_on_client(client, collections: list, progress: bool) -> list:
     return values
 
 
-class _Held:
-    """Hands a lazy dataset to a task as it is: dask does not make its chunks the task's dependencies."""
+def open_and_reduce_run(run: RunFiles, required: tuple[str, ...]) -> xr.Dataset | ArchiveError | BaseException:
+    """One run opened, checked and reduced to global means inside one task (local schedulers): its series, or what
+    stopped it (returned as the value, not raised: one bad run never stops the graph).
 
-    def __init__(self, value):
-        self.value = value
-
-
-def reduce_run(held: _Held, run: RunFiles) -> xr.Dataset | ArchiveError | BaseException:
-    """One run's global means computed in memory, or what stopped it (returned as the value, not raised).
-
-    Inside this task the run's chunks are reduced one after another, so a worker holds one chunk at a time.
+    Opening is part of the task so that the workers of the local pool open their runs' files in parallel (their
+    metadata, time axes and checks cost about a quarter of reading the values); the main process reads nothing.
+    Inside the task the run's files are reduced one after another, so a worker holds one slab at a time, and every
+    file the task opened is closed by it, in its own thread.
     """
-    try:
-        series = held.value.compute(scheduler="sync")
-    except Exception as err:  # noqa: BLE001 — diagnosed by the caller, which names the damaged file
-        return err
+    with opened_by_this_task(OPENING_LOCK):
+        try:
+            with OPENING_LOCK:
+                lazy = global_mean_series(run, required=required)
+        except ArchiveError as err:
+            return err
+        except Exception as err:  # noqa: BLE001 — recorded, never hidden
+            return _unreadable(run, err)
+        try:
+            if lazy.encoding.pop(READ_THROUGH_XARRAY, ()):
+                with OPENING_LOCK:
+                    series = lazy.compute(scheduler="sync")
+            else:
+                series = lazy.compute(scheduler="sync")
+        except Exception as err:  # noqa: BLE001 — diagnosed by the caller, which names the damaged file
+            return err
     return empty_steps(series, run) or series
+
+
+def _unreadable(run: RunFiles, err: BaseException) -> ArchiveError:
+    return ArchiveError(f"could not be read ({type(err).__name__}: {err})",
+                        path=";".join(map(str, run.all_files()[:1])), model=run.model)
 
 
 def reduce_runs(runs: list[RunFiles], required: tuple[str, ...], progress: bool,
                 input_bytes: int | None = None) -> tuple[dict[str, xr.Dataset], dict[str, ArchiveError]]:
     """Global-mean series of ``runs`` in one graph: ``({label: series}, {label: error})``.
 
-    The files are opened here, one after another (the HDF5 library must not open files in several threads
-    at once); their values are read in the graph. `input_bytes` (the size of the files the graph reads) is
-    declared to the scheduler under `BATCH_BYTES_KEY`.
+    On a local scheduler each run is one task that opens and reduces it (`open_and_reduce_run`), the largest runs
+    first, so the last tasks to finish are short ones. On a distributed client the files are opened here, one
+    after another (the HDF5 library must not open files in several threads at once), and their values are read
+    in the cluster's file tasks. `input_bytes` (the size of the files the graph reads) is declared to the
+    scheduler under `BATCH_BYTES_KEY`.
     """
     client = distributed_client()
-    series, errors, tasks, opened = {}, {}, [], []
-    for run in runs:
-        try:
-            lazy = global_mean_series(run, required=required)
-        except ArchiveError as err:
-            errors[run.label] = err
-            continue
-        except Exception as err:  # noqa: BLE001 — recorded, never hidden
-            errors[run.label] = ArchiveError(f"could not be read ({type(err).__name__}: {err})",
-                                             path=";".join(map(str, run.all_files()[:1])), model=run.model)
-            continue
-        if client is None:
-            key = f"reduce-run-{len(tasks)}"
-            tasks.append(dask.delayed(reduce_run, pure=True)(_Held(lazy), run, dask_key_name=key))
-        else:  # the run's file tasks go to the cluster as they are (see the module's docstring)
-            tasks.append(lazy)
-        opened.append(run)
+    if client is None:
+        opened = sorted(runs, key=_run_bytes, reverse=True)
+        reduce = dask.delayed(open_and_reduce_run, pure=True)
+        tasks = [reduce(run, tuple(required), dask_key_name=f"reduce-run-{i:05d}") for i, run in enumerate(opened)]
+        series, errors = {}, {}
+    else:
+        series, errors, tasks, opened = {}, {}, [], []
+        for run in runs:
+            try:
+                lazy = global_mean_series(run, required=required)
+            except ArchiveError as err:
+                errors[run.label] = err
+                continue
+            except Exception as err:  # noqa: BLE001 — recorded, never hidden
+                errors[run.label] = _unreadable(run, err)
+                continue
+            lazy.encoding.pop(READ_THROUGH_XARRAY, None)
+            tasks.append(lazy)  # the run's file tasks go to the cluster as they are (see the module's docstring)
+            opened.append(run)
     try:
         with dask.config.set({BATCH_BYTES_KEY: input_bytes}):
             if not tasks:
@@ -143,3 +165,10 @@ def reduce_runs(runs: list[RunFiles], required: tuple[str, ...], progress: bool,
         else:
             errors[run.label] = read_failure(run, value)
     return series, errors
+
+
+def _run_bytes(run: RunFiles) -> int:
+    try:
+        return sum(Path(path).stat().st_size for path in run.all_files() if not is_url(path))
+    except OSError:  # the run's task reports what is wrong with its files
+        return 0

@@ -11,6 +11,7 @@ from __future__ import annotations
 import re
 from pathlib import Path
 
+import dask
 import numpy as np
 import xarray as xr
 
@@ -18,7 +19,7 @@ from sensemble.contract.flags import ATTRIBUTE_MISMATCH, BRANCH_TIME_UNREADABLE,
 
 from .catalog import RunFiles
 from .errors import ArchiveError
-from .filemeans import READ_THROUGH_XARRAY, file_task_mean
+from .filemeans import READ_THROUGH_XARRAY, file_task_mean, open_file
 from .means import EARTH_RADIUS_M, MIN_SPHERE_FRACTION, area_weights, find_lat_lon, global_mean, sphere_fraction
 from .settings import ExtractionSettings
 from .opened import register
@@ -145,9 +146,10 @@ def _open_run(run: RunFiles, chunks: dict | None, required: tuple[str, ...]) -> 
                             None)
         months[variable] = np.concatenate([m for _, m, _, _ in opened])
         first[variable] = opened[0][0]
-        bnds = _time_bounds(opened)
-        if bnds is not None:
-            bounds[variable] = bnds
+        if variable == next(iter(run.files)):  # the run's time axis and bounds are the first variable's
+            bnds = _time_bounds(opened)
+            if bnds is not None:
+                bounds[variable] = bnds
 
     reference = next(iter(run.files))
     ref_path = run.files[reference][0]
@@ -264,9 +266,12 @@ def _open_file(path: Path, variable: str, run: RunFiles,
     were given to reach the run's units (None: none)."""
     try:
         if chunks is None:
-            raw = open_dataset(path, decode_times=False)
+            raw = open_file(path, decode_times=False)
             if variable in raw.data_vars and "time" in raw[variable].dims:
-                raw[variable] = raw[variable].chunk(_time_chunks(raw, variable))
+                # named by file and variable (unique in a batch): dask would otherwise hash the lazy array's
+                # description, a third of what chunking costs
+                raw[variable] = raw[variable].chunk(_time_chunks(raw, variable),
+                                                    token=dask.base.tokenize(str(path), variable))
         else:
             raw = open_dataset(path, decode_times=False, chunks=chunks)
         register(raw)

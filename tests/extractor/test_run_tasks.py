@@ -1,5 +1,6 @@
-"""Tests of extractor/schedule.py on a local scheduler: each run's task opens, checks and reduces its own files (common practice, no
-source: the means are checked bit for bit against the chunked reduction, itself checked in test_filemeans.py)."""
+"""Tests of extractor/schedule.py on a local scheduler: each run's task opens, checks and reduces its own files
+(common practice, no source: the means are checked bit for bit against the chunked reduction, itself checked in
+test_filemeans.py)."""
 import types
 
 import dask

@@ -1,8 +1,8 @@
 """Scheduling: the global-mean series of every run of a batch, computed in one dask graph.
 
-On a local scheduler the graph has one task per run: each task opens its run's files, reduces them one after
-another and checks the result; a failure comes back as the task's value (an `ArchiveError` naming the file), so one bad run
-never stops the graph. On a distributed client (a local cluster, a scheduler, SLURM/PBS workers) every file's
+On a local scheduler the graph has one task per run: each task reduces its run's files one after another (on the
+local pool of processes it opens and checks them too) and checks the result; a failure comes back as the task's
+value (an `ArchiveError` naming the file), so one bad run never stops the graph. On a distributed client (a local cluster, a scheduler, SLURM/PBS workers) every file's
 read-and-reduce task is a task of the cluster, so any worker takes any file and a batch of a few runs still keeps
 many workers busy; each run is its own future over that one graph, so a failure errs only its own run. Which
 scheduler runs the graph is chosen outside (`sensemble.compute`); here it is submitted once, with the progress
@@ -86,7 +86,8 @@ def open_and_reduce_run(run: RunFiles, required: tuple[str, ...]) -> xr.Dataset 
     """One run opened, checked and reduced to global means inside one task (local schedulers): its series, or what
     stopped it (returned as the value, not raised: one bad run never stops the graph).
 
-    Opening is part of the task so that the workers of the local pool open their runs' files in parallel (their
+    Only for worker processes that run one task at a time (`_runs_in_processes`). Opening is part of the task so
+    that the workers of the local pool open their runs' files in parallel (their
     metadata, time axes and checks cost about a quarter of reading the values); the main process reads nothing.
     Inside the task the run's files are reduced one after another, so a worker holds one slab at a time, and every
     file the task opened is closed by it, in its own thread.
@@ -110,6 +111,32 @@ def open_and_reduce_run(run: RunFiles, required: tuple[str, ...]) -> xr.Dataset 
     return empty_steps(series, run) or series
 
 
+class _Held:
+    """Hands a lazy dataset to a task as it is: dask does not make its chunks the task's dependencies."""
+
+    def __init__(self, value):
+        self.value = value
+
+
+def reduce_run(held: _Held, run: RunFiles) -> xr.Dataset | ArchiveError | BaseException:
+    """One run opened in this process, its global means computed in one task (threads of this process), or what
+    stopped it (returned as the value, not raised)."""
+    try:
+        series = held.value.compute(scheduler="sync")
+    except Exception as err:  # noqa: BLE001 — diagnosed by the caller, which names the damaged file
+        return err
+    return empty_steps(series, run) or series
+
+
+def _runs_in_processes(input_bytes: int | None) -> bool:
+    """Whether the local scheduler in force runs this batch's tasks in worker processes of their own
+    (`sensemble.compute.LocalPool` says so): one task at a time in each, so a task may open its own files. Threads of
+    one process open nothing: netCDF-C and xarray's locks let one thread open while others read only by chance."""
+    scheduler = dask.config.get("scheduler", None)
+    with dask.config.set({BATCH_BYTES_KEY: input_bytes}):
+        return bool(getattr(scheduler, "uses_processes", lambda: False)())
+
+
 def _unreadable(run: RunFiles, err: BaseException) -> ArchiveError:
     return ArchiveError(f"could not be read ({type(err).__name__}: {err})",
                         path=";".join(map(str, run.all_files()[:1])), model=run.model)
@@ -119,14 +146,14 @@ def reduce_runs(runs: list[RunFiles], required: tuple[str, ...], progress: bool,
                 input_bytes: int | None = None) -> tuple[dict[str, xr.Dataset], dict[str, ArchiveError]]:
     """Global-mean series of ``runs`` in one graph: ``({label: series}, {label: error})``.
 
-    On a local scheduler each run is one task that opens and reduces it (`open_and_reduce_run`), the largest runs
-    first, so the last tasks to finish are short ones. On a distributed client the files are opened here, one
-    after another (the HDF5 library must not open files in several threads at once), and their values are read
-    in the cluster's file tasks. `input_bytes` (the size of the files the graph reads) is declared to the
+    On the local pool of processes each run is one task that opens and reduces it (`open_and_reduce_run`), the
+    largest runs first, so the last tasks to finish are short ones. On threads and on a distributed client the
+    files are opened here, one after another (the HDF5 library must not open files in several threads at once),
+    and their values are read in the graph (one task per run on threads, the cluster's file tasks on a client). `input_bytes` (the size of the files the graph reads) is declared to the
     scheduler under `BATCH_BYTES_KEY`.
     """
     client = distributed_client()
-    if client is None:
+    if client is None and _runs_in_processes(input_bytes):
         opened = sorted(runs, key=_run_bytes, reverse=True)
         reduce = dask.delayed(open_and_reduce_run, pure=True)
         tasks = [reduce(run, tuple(required), dask_key_name=f"reduce-run-{i:05d}") for i, run in enumerate(opened)]
@@ -143,7 +170,11 @@ def reduce_runs(runs: list[RunFiles], required: tuple[str, ...], progress: bool,
                 errors[run.label] = _unreadable(run, err)
                 continue
             lazy.encoding.pop(READ_THROUGH_XARRAY, None)
-            tasks.append(lazy)  # the run's file tasks go to the cluster as they are (see the module's docstring)
+            if client is None:
+                tasks.append(dask.delayed(reduce_run, pure=True)(_Held(lazy), run,
+                                                                 dask_key_name=f"reduce-run-{len(tasks)}"))
+            else:  # the run's file tasks go to the cluster as they are (see the module's docstring)
+                tasks.append(lazy)
             opened.append(run)
     try:
         with dask.config.set({BATCH_BYTES_KEY: input_bytes}):

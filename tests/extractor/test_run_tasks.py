@@ -9,7 +9,8 @@ import pytest
 import xarray as xr
 
 from sensemble.extractor import filemeans, opened
-from sensemble.extractor.schedule import open_and_reduce_run, reduce_runs
+from sensemble.compute import SMALL_BATCH_BYTES, LocalPool
+from sensemble.extractor.schedule import _runs_in_processes, open_and_reduce_run, reduce_runs
 from sensemble.extractor.runs import global_mean_series
 from sensemble.extractor.catalog import scan
 from tests.extractor.conftest import write_run
@@ -57,10 +58,22 @@ def test_a_bad_run_comes_back_as_its_error_and_the_others_are_reduced(tmp_path):
     bad = scan(tmp_path / "b").get("OTHERMODEL-2", "r1i1p1f1", "piControl")
     broken = bad.files["rlut"][0]
     broken.write_bytes(broken.read_bytes()[:200])  # truncated: cannot be opened
-    with dask.config.set(scheduler="threads", num_workers=2):
-        series, errors = reduce_runs([good, bad], tuple(VARIABLES), progress=False)
-    assert list(series) == [good.label] and list(errors) == [bad.label]
-    assert errors[bad.label].path == str(broken) and "cannot be read" in str(errors[bad.label])
+    pool = LocalPool(2)  # told the batch is large: worker processes, each run's task opening its own files
+    try:
+        with dask.config.set(scheduler=pool):
+            assert _runs_in_processes(SMALL_BATCH_BYTES) and not _runs_in_processes(None)
+            by_tasks = reduce_runs([good, bad], tuple(VARIABLES), progress=False, input_bytes=SMALL_BATCH_BYTES)
+    finally:
+        pool.close()
+    with dask.config.set(scheduler="threads", num_workers=2):  # threads: opened in this process, as before
+        by_threads = reduce_runs([good, bad], tuple(VARIABLES), progress=False)
+    for series, errors in (by_tasks, by_threads):
+        assert list(series) == [good.label] and list(errors) == [bad.label]
+        assert errors[bad.label].path == str(broken) and "cannot be read" in str(errors[bad.label])
+    for variable in VARIABLES:
+        np.testing.assert_array_equal(by_tasks[0][good.label][variable].values,
+                                      by_threads[0][good.label][variable].values)
+    assert str(by_tasks[1][bad.label]) == str(by_threads[1][bad.label])
     assert not opened.in_task()
 
 

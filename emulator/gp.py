@@ -16,8 +16,13 @@ kept components — the basis error of Higdon et al. (2008, JASA, from memory), 
 each training model's residual outside the components of the others — + the internal variability the smoothing
 removes. The internal variability the smoothing keeps stays in the training residuals, so it is already in the
 GP's nugget and the basis error: only (I − S)·ε is added (S the smoother, ε AR(1) from the control runs), so it
-is not counted twice. Quantiles per year: the sum is matched to one Student-t (scale² the sum of the terms'
-scale², degrees of freedom by Welch–Satterthwaite); exact when one component dominates.
+is not counted twice. The basis error's covariance is estimated from the n training models' leave-one-out
+residuals alone, so, as for a component's amplitude, its scale is integrated out under the reference prior
+p(σ²) ∝ 1/σ² of a zero-mean normal: a multivariate Student-t with n degrees of freedom (Gelman et al.,
+Bayesian Data Analysis, ch. 3, from memory; the mean is already in the leave-one-out departures) — with 4
+training models its variance is twice the plug-in one, which a Gaussian with the plug-in variance ignored.
+Quantiles per year: the sum is matched to one Student-t (scale² the sum of the terms' scale², degrees of freedom
+by Welch–Satterthwaite); exact when one component dominates.
 """
 from __future__ import annotations
 
@@ -87,11 +92,10 @@ class PathwayEmulator(BaseEstimator):
     components_ : (n_components, n_years) principal directions of the residuals (orthonormal rows)
     scores_ : (n_runs, n_components) training coordinates on them (the GP targets)
     explained_variance_ratio_ : (n_components,) share of the residual variance of each kept component
-    truncated_components_, truncated_scale_ : discarded directions and the predictive sd of their scores
-        (sample sd, with the small-sample factor (1 + 1/n)·(t/z)² when that correction is on)
-    truncation_variance_ : (n_years,) variance left out by the truncation
-    gps_ : list of fitted GaussianProcessRegressor, one per component
-    variance_scale_ : (n_components,) factor on each GP's variance (1 without the small-sample correction)
+    basis_error_ : (n_runs, n_years) leave-one-model-out residuals outside the kept components, over √n
+    truncation_variance_ : (n_years,) their sum of squares per year: the basis error's scale² (its variance is
+        that times ν/(ν − 2), ν = `basis_dof_`)
+    gps_ : list of fitted `ComponentGP`, one per component
     x_mean_, x_scale_ : input standardisation
     X_train_, Y_train_ : training data
 
@@ -283,6 +287,12 @@ class PathwayEmulator(BaseEstimator):
         """Degrees of freedom of each component's predictive t (inf: Gaussian)."""
         return np.array([gp.dof_ for gp in self.gps_], float)
 
+    @property
+    def basis_dof_(self) -> float:
+        """Degrees of freedom of the basis error's multivariate t: the n leave-one-out residuals it is estimated
+        from (inf, a Gaussian, without the small-sample correction)."""
+        return float(len(self.basis_error_)) if self.small_sample_correction else np.inf
+
     def _component_predictions_exact(self, Xs):
         mu = np.empty((Xs.shape[0], self.n_components_))
         sd = np.empty_like(mu)
@@ -328,21 +338,24 @@ class PathwayEmulator(BaseEstimator):
         if not return_std:
             return mean
         sd = scale * t_sd_factor(self.dof_)
-        var = (sd ** 2) @ (self.components_ ** 2) + self.truncation_variance_ + self.internal_variance_
+        basis = self.truncation_variance_ * t_sd_factor(self.basis_dof_) ** 2
+        var = (sd ** 2) @ (self.components_ ** 2) + basis + self.internal_variance_
         return mean, np.sqrt(var)
 
     def quantiles(self, X, probabilities) -> np.ndarray:
         """Per-year quantiles (n_cases, n_probabilities, n_years) of the predictive distribution at X.
 
         One Student-t per year: scale² = Σ_j s_j² v_jt² + basis error + internal variability, degrees of
-        freedom ν = (scale²)² / Σ_j (s_j² v_jt²)² / ν_j (Welch–Satterthwaite, from memory); with a single
-        component and nothing else it is that component's t exactly (scipy.stats.t).
+        freedom ν = (scale²)² / [Σ_j (s_j² v_jt²)² / ν_j + (basis error)² / ν_b] (Welch–Satterthwaite, from
+        memory; ν_b = `basis_dof_`, the internal variability Gaussian); with a single component and nothing
+        else it is that component's t exactly (scipy.stats.t).
         """
         mu, scale = self.component_predictions(X)
         mean = self._base(X, mu)
         terms = (scale ** 2)[:, :, None] * (self.components_ ** 2)[None, :, :]  # (cases, components, years)
-        total = terms.sum(axis=1) + self.truncation_variance_ + self.internal_variance_
-        dof = self.dof_[None, :, None]
+        terms = np.concatenate([terms, np.broadcast_to(self.truncation_variance_, (len(mu), 1, terms.shape[2]))], 1)
+        total = terms.sum(axis=1) + self.internal_variance_
+        dof = np.r_[self.dof_, self.basis_dof_][None, :, None]
         with np.errstate(divide="ignore", invalid="ignore"):
             denominator = np.sum(np.where(np.isinf(dof), 0.0, terms ** 2 / dof), axis=1)
             nu = np.where(denominator > 0, total ** 2 / denominator, np.inf)
@@ -357,7 +370,8 @@ class PathwayEmulator(BaseEstimator):
         last = int(min(max(1, last_years), self.components_.shape[1]))
         kept = self.components_[:, -last:].mean(axis=1)
         forced = ((scale * t_sd_factor(self.dof_)) ** 2) @ (kept ** 2)
-        forced = forced + np.sum(self.basis_error_[:, -last:].mean(axis=1) ** 2)
+        basis = np.sum(self.basis_error_[:, -last:].mean(axis=1) ** 2) * float(t_sd_factor(self.basis_dof_)) ** 2
+        forced = forced + basis
         internal = 0.0
         if self._iv_covariance is not None:
             internal = float(self._iv_covariance[-last:, -last:].sum()) / last ** 2
@@ -367,7 +381,8 @@ class PathwayEmulator(BaseEstimator):
         """Random pathways from the predictive distribution: array (n_cases, n_samples, n_years).
 
         Components are drawn from their predictive t (Gaussian without the small-sample correction); the basis
-        error as Σ_i ξ_i e_i with ξ_i standard normal over the leave-one-out residuals e_i/√n; internal
+        error as Σ_i ξ_i e_i/√n over the leave-one-out residuals e_i, with ξ_i standard normal times one
+        √(ν/χ²_ν) per pathway (a multivariate t with ν = `basis_dof_`, as a normal over an inverse-χ² scale); internal
         variability as AR(1) noise less its smoothed part, so each pathway is one realisation. Correlations
         between years are kept, so derived quantities (decadal means, crossing years) are sampled consistently.
         """
@@ -381,7 +396,10 @@ class PathwayEmulator(BaseEstimator):
         out = np.matmul(scale[:, None, :] * draws, self.components_)
         out += base[:, None, :]
         if len(self.basis_error_):
-            out += np.matmul(rng.standard_normal(shape + (len(self.basis_error_),)), self.basis_error_)
+            basis = np.matmul(rng.standard_normal(shape + (len(self.basis_error_),)), self.basis_error_)
+            if np.isfinite(self.basis_dof_):
+                basis *= np.sqrt(self.basis_dof_ / rng.chisquare(self.basis_dof_, shape))[..., None]
+            out += basis
         if self.internal_variability_ is not None and self.internal_variability_[0] > 0 and self._smooths:
             noise = ar1_noise(rng, shape + (n_years,), *self.internal_variability_)
             out += self._unsmoothed(noise)

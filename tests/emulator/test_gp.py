@@ -99,6 +99,40 @@ def test_small_sample_correction_pure_noise_is_prediction_interval():
     assert (q[1] - q[0]) / 2 == pytest.approx(half, rel=1e-6)
 
 
+class _NoScore:
+    """A component GP that predicts its score exactly (location 0, scale 0): only the basis error is left."""
+    dof_ = np.inf
+
+    def predict(self, Xs):
+        return np.zeros(len(Xs)), np.zeros(len(Xs))
+
+
+def test_basis_error_quantiles_and_draws_are_student_t_with_n_dof():
+    # The basis error's scale is estimated from the n leave-one-out residuals; integrated out under the reference
+    # prior p(σ²) ∝ 1/σ² its predictive is a Student-t with n dof (Gelman et al., Bayesian Data Analysis, ch. 3,
+    # from memory): per-year quantiles = mean + √(scale²) · t_p,n, checked against scipy.stats.t.
+    from scipy.stats import kurtosis, t as student_t
+    X = np.linspace(2.0, 5.0, 5)[:, None]
+    rng = np.random.default_rng(3)
+    Y = rng.normal(size=(5, 12)) + np.outer(X[:, 0], np.linspace(0.0, 1.0, 12))
+    em = PathwayEmulator(physics_mean=False, max_components=1, smoothing="none").fit(X, Y)
+    assert em.basis_dof_ == 5 and em.truncation_variance_.min() > 0
+    em.gps_[0] = _NoScore()
+    mean = em.predict([[3.1]])[0]
+    q = em.quantiles([[3.1]], [0.05, 0.5, 0.99])[0]
+    for row, p in zip(q, (0.05, 0.5, 0.99)):
+        np.testing.assert_allclose(row, mean + np.sqrt(em.truncation_variance_) * student_t.ppf(p, 5), rtol=1e-10)
+    # sampled pathways: a t with 5 dof has variance 5/3 of its scale² and excess kurtosis 6/(5 − 4) = 6 (textbook);
+    # a Gaussian draw would give 1 and 0
+    draws = em.sample_paths([[3.1]], 200_000, random_state=4)[0, :, 0] - mean[0]
+    assert draws.var() / em.truncation_variance_[0] == pytest.approx(5 / 3, rel=0.05)
+    assert kurtosis(draws) > 3.0
+    # without the small-sample correction the plug-in Gaussian is kept
+    plug_in = PathwayEmulator(physics_mean=False, max_components=1, smoothing="none",
+                              small_sample_correction=False).fit(X, Y)
+    assert plug_in.basis_dof_ == np.inf
+
+
 def test_doubled_co2_at_ecs_3_approaches_3_kelvin():
     # Fact of the trade: with ECS = 3 K the warming for doubled CO2 tends to 3 K (equilibrium ΔT = F2x/λ,
     # Held et al. 2010); over years 950–1000 (≈ 4 slow time scales, Geoffroy et al. 2013a) within ~3 %.
@@ -138,7 +172,10 @@ def test_variance_adds_up_and_sampling_agrees():
     assert "single realisation" in em.prediction_target_
     mean, sd = em.predict([[3.2]], return_std=True)
     mu, s = em.component_predictions([[3.2]])
-    expected = ((s * t_sd_factor(em.dof_)) ** 2) @ em.components_ ** 2 + em.truncation_variance_ + em.internal_variance_
+    # the basis error is a multivariate t with n = 10 dof: variance scale² · n/(n − 2) (textbook t variance)
+    assert em.basis_dof_ == 10
+    basis = em.truncation_variance_ * 10 / 8
+    expected = ((s * t_sd_factor(em.dof_)) ** 2) @ em.components_ ** 2 + basis + em.internal_variance_
     np.testing.assert_allclose(sd[0] ** 2, expected[0], rtol=1e-12)
     paths = em.sample_paths([[3.2]], 20000, random_state=1)
     np.testing.assert_allclose(paths[0].mean(0), mean[0], atol=4 * sd.max() / np.sqrt(20000))

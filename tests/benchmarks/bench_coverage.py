@@ -46,9 +46,10 @@ def main(argv=None) -> None:
         print(f"{name}: {len(found)} rows in {time.perf_counter() - started:.0f} s ({_load()})", flush=True)
         rows += [dict(row, stage=name) for row in found]
     width = max((len(row["what"]) for row in rows), default=20)
-    print(f"\n{'what':<{width}}  nominal  measured  detail")
+    print(f"\n{'what':<{width}}  nominal  measured     se  detail")
     for row in rows:
-        print(f"{row['what']:<{width}}  {row['nominal']:>7.2f}  {row['measured']:>8.3f}  {row['detail']}")
+        se = f"{row['se']:>6.3f}" if row.get("se") is not None else f"{'':>6}"
+        print(f"{row['what']:<{width}}  {row['nominal']:>7.2f}  {row['measured']:>8.3f} {se}  {row['detail']}")
 
 
 if __name__ == "__main__":

@@ -10,6 +10,11 @@ Two experiments, each row {what, nominal, measured, detail}:
    control runs. The ensemble's table holds the Gregory fit of each noisy abrupt run (as the extractor's).
    Scored as `emulator.validate` does: coverage of the 90 % interval of the last-decade mean, and the rms
    standardized error z. Goals (issue 10): coverage 0.87–0.93 and rms z 0.9–1.1 at each size.
+   Each figure comes with its standard error over ensembles (held-out models of one ensemble share their
+   training models, so they are not independent: the se is the sd of the per-ensemble figures over √ensembles;
+   for rms z by the delta method, se(mean z²) / (2 rms z)). With 40 ensembles of 5 models the coverage's se is
+   about 0.02, too coarse to tell 0.865 from 0.87; hence more ensembles where the models are fewer. At 5 models
+   the predictive t has 3 dof, so z² has no finite variance in theory: its se is indicative only.
 2. The distribution case `ecs_eff=3.0:2.5-4.0`: the quantiles 17/50/83 % the sampled inputs achieve, and
    P(x > 4.0) (nominal 0.17).
 
@@ -29,7 +34,7 @@ from sensemble.emulator.ebm import TwoLayerParameters, integrate, toa_imbalance
 
 SIZES = (5, 8, 12)
 N_YEARS, ABRUPT_YEARS, CONTROL_YEARS = 100, 150, 200
-ENSEMBLES = {True: 6, False: 40}  # random ensembles per size: quick, full
+ENSEMBLES = {True: {5: 6, 8: 6, 12: 6}, False: {5: 300, 8: 150, 12: 100}}  # random ensembles per size: quick, full
 # Last full run (load 11–12 on 2 cores, 28 min): coverage / rms z 0.865 / 1.13 (5 models), 0.891 / 1.07 (8), 0.894 / 1.06 (12);
 # before this issue 0.840 / 1.50, 0.869 / 1.14, 0.892 / 1.05. Distribution 17/50/83 %: 2.499/2.999/3.998 (before 2.38/3.00/3.80).
 SAMPLES = 400  # sampled pathways per held-out model for its end-of-pathway interval
@@ -92,24 +97,41 @@ def _leave_one_out(ts, seed):
     return per_run
 
 
+def _mean_and_se(runs, values) -> tuple[float, float]:
+    """Mean of `values` over held-out models and its standard error over ensembles (the per-ensemble means'
+    sd over √ensembles; every ensemble of a size holds the same number of models; common practice, no source)."""
+    per_ensemble = pd.Series(np.asarray(values, float)).groupby(runs["ensemble"].to_numpy()).mean()
+    se = float(per_ensemble.std(ddof=1) / np.sqrt(len(per_ensemble))) if len(per_ensemble) > 1 else np.nan
+    return float(np.mean(values)), se
+
+
 def emulator_rows(quick: bool, progress=print) -> list[dict]:
     rows = []
     for size in SIZES:
         started = time.perf_counter()
-        frames = [_leave_one_out(random_training_set(size, 1000 * size + e), e) for e in range(ENSEMBLES[quick])]
+        n_ensembles = ENSEMBLES[quick][size]
+        frames = []
+        for e in range(n_ensembles):
+            frames.append(_leave_one_out(random_training_set(size, 1000 * size + e), e).assign(ensemble=e))
+            if progress and (e + 1) % 25 == 0:
+                progress(f"{size} models: {e + 1}/{n_ensembles} ensembles")
         runs = pd.concat(frames, ignore_index=True)
+        coverage, coverage_se = _mean_and_se(runs, runs["end_covered90"].astype(float))
         z = runs["end_z"].to_numpy(float)
+        mean_z2, mean_z2_se = _mean_and_se(runs, runs["end_z"] ** 2)
+        rms_z = float(np.sqrt(mean_z2))
         below = float(np.mean(runs["end_actual"] < runs["end_q05"]))
         above = float(np.mean(runs["end_actual"] > runs["end_q95"]))
-        detail = (f"{ENSEMBLES[quick]} random ensembles, {len(runs)} held-out models; misses below/above "
+        detail = (f"{n_ensembles} random ensembles, {len(runs)} held-out models; misses below/above "
                   f"{below:.3f}/{above:.3f}; mean z {np.mean(z):+.2f}; RMSE {np.sqrt(np.mean(runs['end_error'] ** 2)):.3f} K; "
                   f"{time.perf_counter() - started:.0f} s")
         rows.append(dict(what=f"emulator leave-one-model-out 90 % interval, last-decade warming, {size} models",
-                         nominal=0.90, measured=float(runs["end_covered90"].mean()), detail=detail))
+                         nominal=0.90, measured=coverage, se=coverage_se, detail=detail))
         rows.append(dict(what=f"emulator leave-one-model-out rms standardized error, {size} models",
-                         nominal=1.0, measured=float(np.sqrt(np.mean(z ** 2))), detail=detail))
+                         nominal=1.0, measured=rms_z, se=mean_z2_se / (2.0 * rms_z), detail=detail))
         if progress:
-            progress(f"{size} models: {rows[-2]['measured']:.3f} coverage, rms z {rows[-1]['measured']:.2f} ({detail})")
+            progress(f"{size} models: {coverage:.3f} ± {coverage_se:.3f} coverage, rms z {rms_z:.2f} ± "
+                     f"{rows[-1]['se']:.2f} ({detail})")
     return rows
 
 
@@ -140,7 +162,8 @@ def main(argv=None):
     rows = emulator_rows(args.quick) + distribution_rows(args.quick)
     width = max(len(r["what"]) for r in rows)
     for r in rows:
-        print(f"{r['what']:<{width}}  nominal {r['nominal']:<5g} measured {r['measured']:.3f}   {r['detail']}")
+        se = f" ± {r['se']:.3f}" if "se" in r else ""
+        print(f"{r['what']:<{width}}  nominal {r['nominal']:<5g} measured {r['measured']:.3f}{se}   {r['detail']}")
     one, five, _ = os.getloadavg()
     print(f"machine load after: {one:.1f}/{five:.1f}")
 

@@ -89,8 +89,8 @@ def test_small_sample_correction_pure_noise_is_prediction_interval():
     y = np.array([0.3, -0.5, 0.1, 0.4, -0.2, -0.3, 0.5, -0.1, 0.2, -0.4])  # no trend in X
     em = PathwayEmulator(physics_mean=False, max_components=1).fit(X, y[:, None])
     half = y.std(ddof=1) * np.sqrt(1 + 1 / 10) * student_t.ppf(0.95, 9)
-    # the posterior over (ℓ, η) keeps some weight on a weak signal (the nugget prior's median is 0.1), so the
-    # interval is a little narrower than the no-signal limit
+    # the posterior over (ℓ, η) keeps some weight on a weak signal (the nugget prior's median is 1, equal shares),
+    # so the interval is a little narrower than the no-signal limit
     q = em.quantiles([[3.3]], [0.05, 0.95])[0, :, 0]
     assert 0.85 * half < (q[1] - q[0]) / 2 <= 1.02 * half
     # the limit itself: all nugget (η → ∞) gives the textbook interval
@@ -262,3 +262,14 @@ def test_gridded_gp_predictions_match_exact():
     assert np.all(np.abs(mu - mu0).max(axis=0) < 1e-3 * scale)
     assert np.all(np.abs(sd - sd0).max(axis=0) < 1e-3 * scale)
     assert np.abs((mu - mu0) @ em.components_).max() < 1e-3
+
+
+def test_nugget_prior_presumes_neither_share():
+    # Our own choice, no outside source (emulator/component_gp.py): the prior on the ratio η of unexplained to
+    # explained scatter is symmetric in η and 1/η, so with 4–5 models, where the data hardly inform η, it does
+    # not presume that the inputs explain most of a score's scatter.
+    from sensemble.emulator.component_gp import NUGGET_PRIOR
+    from scipy.stats import norm
+    centre, width = NUGGET_PRIOR
+    for eta in (0.1, 0.5, 3.0):
+        assert norm.logpdf(np.log(eta), centre, width) == pytest.approx(norm.logpdf(-np.log(eta), centre, width))

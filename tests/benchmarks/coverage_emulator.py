@@ -35,8 +35,12 @@ from sensemble.emulator.ebm import TwoLayerParameters, integrate, toa_imbalance
 SIZES = (5, 8, 12)
 N_YEARS, ABRUPT_YEARS, CONTROL_YEARS = 100, 150, 200
 ENSEMBLES = {True: {5: 6, 8: 6, 12: 6}, False: {5: 300, 8: 150, 12: 100}}  # random ensembles per size: quick, full
-# Last full run (load 11–12 on 2 cores, 28 min): coverage / rms z 0.865 / 1.13 (5 models), 0.891 / 1.07 (8), 0.894 / 1.06 (12);
-# before this issue 0.840 / 1.50, 0.869 / 1.14, 0.892 / 1.05. Distribution 17/50/83 %: 2.499/2.999/3.998 (before 2.38/3.00/3.80).
+# Last full run (these seeds, in two processes; load 5–9 on 2 cores): coverage ± se / rms z ± se / RMSE
+# 5 models 0.911 ± 0.006 / 0.91 ± 0.03 / 0.232 K; 8 models 0.892 ± 0.007 / 0.99 ± 0.01 / 0.217 K;
+# 12 models 0.891 ± 0.007 / 1.03 ± 0.01 / 0.212 K. Before (Gaussian basis error, nugget prior centred on 0.1):
+# 5 models, the same 300 ensembles, 0.873 ± 0.007 / 1.04 ± 0.04 / 0.244 K; 8 and 12 models from 40 ensembles
+# 0.891 / 1.07 / 0.234 K and 0.894 / 1.06 / 0.212 K. Before this issue (40 ensembles) 0.840 / 1.50, 0.869 / 1.14,
+# 0.892 / 1.05. Distribution 17/50/83 %: 2.499/2.999/3.998 (before 2.38/3.00/3.80).
 SAMPLES = 400  # sampled pathways per held-out model for its end-of-pathway interval
 
 

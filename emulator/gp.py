@@ -16,7 +16,9 @@ kept components — the basis error of Higdon et al. (2008, JASA, from memory), 
 each training model's residual outside the components of the others — + the internal variability the smoothing
 removes. The internal variability the smoothing keeps stays in the training residuals, so it is already in the
 GP's nugget and the basis error: only (I − S)·ε is added (S the smoother, ε AR(1) from the control runs), so it
-is not counted twice. The basis error's covariance is estimated from the n training models' leave-one-out
+is not counted twice. (The truth's ε = Sε + (I − S)ε also has the cross term 2·SΣ(I − S), which this split
+omits: for a last-decade mean, AR(1) sd 0.1 K, it is 1.3e-4 K² at lag-1 0.5 and 3.3e-4 K² at 0.8 — under 1 % of
+the end-of-pathway variance of 5–12 models; computed with the response smoother, 100 years.) The basis error's covariance is estimated from the n training models' leave-one-out
 residuals alone, so, as for a component's amplitude, its scale is integrated out under the reference prior
 p(σ²) ∝ 1/σ² of a zero-mean normal: a multivariate Student-t with n degrees of freedom (Gelman et al.,
 Bayesian Data Analysis, ch. 3, from memory; the mean is already in the leave-one-out departures) — with 4

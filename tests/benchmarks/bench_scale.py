@@ -21,7 +21,7 @@ With --memory, the kind "processes" runs again on archives with 2× the years an
 the largest worker should move less than 10 %.
 
 Run: python tests/benchmarks/bench_scale.py [--workers N] [--years control=100,...] [--dir FOLDER]
-         [--layouts chunk12,chunk1,classic] [--memory]
+         [--layouts chunk12,chunk1,classic] [--memory] [--repeat N]
 
 Measured 2026-12-02 — see the README's "Running at scale" for the figures and the machine's load beside them.
 Default pool on these default archives, before → after its runs were opened in their own tasks (marginal CPU s of
@@ -40,6 +40,8 @@ import subprocess
 import sys
 import time
 from pathlib import Path
+
+import numpy as np
 
 if __package__ in (None, ""):  # run as a script: make `tests` importable
     sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
@@ -163,6 +165,7 @@ def main() -> None:
     parser.add_argument("--dir", default="/tmp/sensemble-bench-scale")
     parser.add_argument("--layouts", default=",".join(LAYOUTS))
     parser.add_argument("--memory", action="store_true", help="also kind processes on 2× years and 2× models")
+    parser.add_argument("--repeat", type=int, default=1, help="pairs of runs per column; medians are printed")
     parser.add_argument("--only", default="floor1,floorN,default,processes,threads",
                         help="columns to measure (e.g. default,processes with another installation's python, to "
                         "measure an earlier version: its default is that version's)")
@@ -207,16 +210,22 @@ def main() -> None:
         print(f"  {'':<26}{'1 model':>9}{'2 models':>9}{'marginal':>10}{'MB/s':>8}{'CPU s':>8}{'/ floor N':>10}  load")
         floor_n = None
         for label, run in columns.items():
-            one, two = run(archives[1]), run(archives[2])
-            marginal = two["wall"] - one["wall"]
-            cpu = two["cpu"] - one["cpu"]
+            # --repeat N: N pairs of runs; the figures are the pairs' medians (an idle 2-core machine still moved
+            # one pair's marginal time by 40 %: where a batch's last tasks fall decides whole seconds)
+            pairs = [(run(archives[1]), run(archives[2])) for _ in range(args.repeat)]
+            one = {k: float(np.median([p[0][k] for p in pairs])) for k in ("wall", "load")}
+            two = {k: float(np.median([p[1][k] for p in pairs])) for k in ("wall", "load")}
+            marginals = [b["wall"] - a["wall"] for a, b in pairs]
+            marginal = float(np.median(marginals))
+            cpu = float(np.median([b["cpu"] - a["cpu"] for a, b in pairs]))
             if label.startswith(f"floor, {n} ") and marginal > 0:
                 floor_n = marginal
             usable = marginal > 0  # a negative marginal time: the machine's load moved more than the work did
             ratio = f"{marginal / floor_n:10.2f}" if usable and floor_n and not label.startswith("floor") else " " * 10
             rate = f"{marginal_mb / marginal:8.0f}" if usable else f"{'n/a':>8}"
+            spread = f"  marginal {min(marginals):.1f}–{max(marginals):.1f} s" if args.repeat > 1 else ""
             print(f"  {label:<26}{one['wall']:8.1f}s{two['wall']:8.1f}s{marginal:9.1f}s{rate}{cpu:8.1f}{ratio}  "
-                  f"{one['load']:.1f}/{two['load']:.1f}", flush=True)
+                  f"{one['load']:.1f}/{two['load']:.1f}{spread}", flush=True)
     if args.memory:
         memory_test(folder, years, n, work)
 

@@ -127,12 +127,8 @@ def drift_covariance(design: np.ndarray, at_years: np.ndarray, segment_years: in
     Gregory fit), the coefficients move by (XᵀX)⁻¹ Xᵀ e_d(t) to first order. ``at_years`` are the fitted
     years counted from 0 at the branch; ``noise`` is the control's internal variability of that combination.
     """
-    segment = np.vander(np.arange(segment_years, dtype=float), order + 1, increasing=True)
-    drift_cov = ols_sandwich(segment, noise)  # of the drift polynomial's coefficients
-    at = np.vander(np.asarray(at_years, dtype=float), order + 1, increasing=True)
-    design = np.asarray(design, dtype=np.float64)
-    carry = np.linalg.solve(design.T @ design, design.T @ at)
-    return carry @ drift_cov @ carry.T
+    return drift_cross_covariance(design, at_years, design, at_years, segment_years, order, noise.sd**2,
+                                  noise.lag1)
 
 
 def cross_covariance(design_a: np.ndarray, years_a: np.ndarray, design_b: np.ndarray, years_b: np.ndarray,
@@ -158,9 +154,10 @@ def drift_cross_covariance(design_a: np.ndarray, at_a: np.ndarray, design_b: np.
     """
     segment = np.vander(np.arange(segment_years, dtype=float), order + 1, increasing=True)
     years = np.arange(segment_years, dtype=float)
-    drift_cross = cross_covariance(segment, years, segment, years, covariance, lag1)
+    drift_cross = cross_covariance(segment, years, segment, years, covariance, lag1)  # the drift polynomial's
     carry = [np.linalg.solve(d.T @ d, d.T @ np.vander(np.asarray(at, dtype=float), order + 1, increasing=True))
-             for d, at in ((design_a, at_a), (design_b, at_b))]
+             for d, at in ((np.asarray(design_a, dtype=np.float64), at_a),
+                           (np.asarray(design_b, dtype=np.float64), at_b))]
     return carry[0] @ drift_cross @ carry[1].T
 
 

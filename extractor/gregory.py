@@ -304,7 +304,7 @@ def gregory_fit(dT, dN, years=_DEFAULTS.fit_years, forcing_ratio: float = _DEFAU
     design = np.column_stack([np.ones_like(x), x])
     u = -erf / feedback if feedback != 0 else 0.0  # forcing_ratio·ecs: Fieller's contrast at the estimate
     cov, noise, dofs = _covariance(design, y - erf - feedback * x, years, control, regressand,
-                                                      feedback, contrasts=([0.0, 1.0], [1.0, u]) if dof else ())
+                                   feedback, contrasts=([0.0, 1.0], [1.0, u]) if dof else ())
     return GregoryFit(
         erf=erf,
         erf_se=float(np.sqrt(cov[0, 0])),

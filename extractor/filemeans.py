@@ -97,12 +97,14 @@ class FileSource:
     offset: float | None = None
 
 
-def file_global_means(source: FileSource, weights: np.ndarray) -> np.ndarray:
-    """Area-weighted global mean of every time step of one file's variable (float64, missing cells left out)."""
+def file_global_means(source: FileSource, weights: np.ndarray, handle=None) -> np.ndarray:
+    """Area-weighted global mean of every time step of one file's variable (float64, missing cells left out);
+    `handle`: the file's open netCDF4 Dataset, if the caller has one (it stays open)."""
     _allocator_for_slabs()
     n_grid = weights.ndim
     out = np.empty(source.steps, dtype=np.float64)
-    shared = shared_handle(source.path)  # opened by this run's task for its checks: not opened twice
+    # opened by the caller, or by this run's task for its checks: not opened twice
+    shared = handle if handle is not None else shared_handle(source.path)
     if shared is None:
         with NETCDF_LOCK:
             nc = netCDF4.Dataset(source.path, "r")

@@ -30,24 +30,26 @@ _AREA_UNITS = {"m2", "m^2", "m**2", "m 2", "m-2 m4", "square_meters", "square_me
 
 def find_lat_lon(obj: xr.Dataset | xr.DataArray) -> tuple[str, str]:
     """Names of the latitude and longitude coordinates (by CF standard_name, units or name)."""
-
-    def find(kind: str, units: set[str], names: tuple[str, ...]) -> str | None:
-        for name, coord in obj.coords.items():
-            if coord.attrs.get("standard_name") == kind:
-                return str(name)
-        for name, coord in obj.coords.items():
-            if coord.attrs.get("units") in units:
-                return str(name)
-        for name in names:
-            if name in obj.coords:
-                return name
-        return None
-
-    lat = find("latitude", {"degrees_north", "degree_north", "degree_N", "degrees_N", "degreeN"}, ("lat", "latitude"))
-    lon = find("longitude", {"degrees_east", "degree_east", "degree_E", "degrees_E", "degreeE"}, ("lon", "longitude"))
+    lat, lon = lat_lon_names({str(name): coord.attrs for name, coord in obj.coords.items()})
     if lat is None or lon is None:
         raise ArchiveError("no latitude/longitude coordinates found", hint="the file must carry CF lat/lon coordinates")
     return lat, lon
+
+
+def lat_lon_names(coords: dict[str, dict]) -> tuple[str | None, str | None]:
+    """`find_lat_lon` over coordinate names → attributes, in order: None for what is not found."""
+
+    def find(kind: str, units: set[str], names: tuple[str, ...]) -> str | None:
+        for name, attrs in coords.items():
+            if attrs.get("standard_name") == kind:
+                return name
+        for name, attrs in coords.items():
+            if attrs.get("units") in units:
+                return name
+        return next((name for name in names if name in coords), None)
+
+    return (find("latitude", {"degrees_north", "degree_north", "degree_N", "degrees_N", "degreeN"}, ("lat", "latitude")),
+            find("longitude", {"degrees_east", "degree_east", "degree_E", "degrees_E", "degreeE"}, ("lon", "longitude")))
 
 
 def _bounds(ds: xr.Dataset, coord: str) -> xr.DataArray | None:

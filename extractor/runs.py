@@ -134,7 +134,7 @@ def _open_run(run: RunFiles, chunks: dict | None, required: tuple[str, ...]) -> 
                     run, path, f"calendar {file_calendar!r} differs from {calendar[0]!r} in {name_of(calendar[1])}",
                     "all files of a run must use one calendar",
                 )
-            _collect_identity(ds, path, run, mismatches)
+            _collect_identity(ds.attrs, path, run, mismatches)
             opened.append((ds, _month_index(ds, path, run), path, offset))
         opened.sort(key=lambda item: item[1][0])
         _check_joins(opened, run)
@@ -175,10 +175,11 @@ def _open_run(run: RunFiles, chunks: dict | None, required: tuple[str, ...]) -> 
             layout[variable] = (layout[variable][0], keep)
         data_vars[variable] = part.assign_coords(time=time.values)
     ds = xr.Dataset(data_vars)
-    ds["time"].attrs = {k: v for k, v in time.attrs.items() if k != "bounds"}
+    time_attrs = {k: v for k, v in time.attrs.items() if k != "bounds"}
     if reference in bounds:
         ds["time_bnds"] = bounds[reference].isel(time=ref_positions).assign_coords(time=time.values)
-        ds["time"].attrs["bounds"] = "time_bnds"
+        time_attrs["bounds"] = "time_bnds"
+    ds["time"].attrs = time_attrs  # after the bounds: adding them replaced the time coordinate's attributes
     template = first[reference]
     lat, lon = find_lat_lon(template)
     for coord in (lat, lon):
@@ -187,7 +188,7 @@ def _open_run(run: RunFiles, chunks: dict | None, required: tuple[str, ...]) -> 
             ds[f"{coord}_bnds"] = template[name].load()
             ds[coord].attrs["bounds"] = f"{coord}_bnds"
 
-    attrs = _run_attributes(run, mismatches, template, flags)
+    attrs = _run_attributes(run, mismatches, template.attrs, flags)
     attrs["calendar"] = CALENDARS[calendar[0]] if calendar else "standard"
     attrs["time_units"] = str(template["time"].encoding.get("units", ""))
     attrs["files"] = ";".join(str(p) for p in run.all_files())
@@ -310,35 +311,44 @@ def _open_file(path: Path, variable: str, run: RunFiles,
     return ds, calendar, defaulted, offset
 
 
-def _checked_units(da: xr.DataArray, variable: str, path: Path, run: RunFiles) -> tuple[xr.DataArray, float | None]:
-    units = da.attrs.get("units")
+def units_offset(units, variable: str, path, run: RunFiles) -> tuple[str, float | None]:
+    """The run's units of `variable` (K or W m-2) and the offset its values need to reach them (None: none), from
+    the file's ``units`` attribute (None: missing); raises `ArchiveError` for anything else."""
     if units is None:
         raise _error(run, path, f"{variable} has no units attribute", "add CF units; units are never guessed")
     text = str(units).strip()
     if variable in TEMPERATURE:
-        offset = None
         if text in KELVIN:
-            out = da
-        elif text in CELSIUS:
-            offset = CELSIUS_TO_KELVIN
-            out = da + offset
-            out.attrs = dict(da.attrs)
-            out.encoding = dict(da.encoding)
-        else:
-            raise _error(run, path, f"{variable} units {text!r} are not a temperature (K or degC)", "fix the units attribute")
-        out.attrs["units"] = "K"
-        return out.rename(da.name), offset
+            return "K", None
+        if text in CELSIUS:
+            return "K", CELSIUS_TO_KELVIN
+        raise _error(run, path, f"{variable} units {text!r} are not a temperature (K or degC)", "fix the units attribute")
     spelled = re.sub(r"[\s.·]+", " ", text.replace("**", "").replace("^", "")).strip()
     if spelled not in FLUX_UNITS:
         raise _error(run, path, f"{variable} units {text!r} are not W m-2", "give fluxes in W m-2 (fix the units attribute)")
-    out = da.copy()
-    out.attrs["units"] = "W m-2"
-    return out, None
+    return "W m-2", None
+
+
+def _checked_units(da: xr.DataArray, variable: str, path: Path, run: RunFiles) -> tuple[xr.DataArray, float | None]:
+    units, offset = units_offset(da.attrs.get("units"), variable, path, run)
+    if offset is not None:
+        out = da + offset
+        out.attrs = dict(da.attrs)
+        out.encoding = dict(da.encoding)
+        out = out.rename(da.name)
+    else:
+        out = da if variable in TEMPERATURE else da.copy()
+    out.attrs["units"] = units
+    return out, offset
 
 
 def _month_index(ds: xr.Dataset, path: Path, run: RunFiles) -> np.ndarray:
     """Months since year 0 of each time step; checks the file's steps are monthly and in order."""
-    times = ds["time"].values
+    return month_index(ds["time"].values, path, run)
+
+
+def month_index(times: np.ndarray, path, run: RunFiles) -> np.ndarray:
+    """Months since year 0 of each of a file's decoded times (cftime dates); checks they are monthly and in order."""
     if times.size == 0:
         raise _error(run, path, "has no time steps", "replace the file")
     index = np.array([t.year * 12 + t.month - 1 for t in times], dtype=np.int64)
@@ -441,14 +451,14 @@ def _cmip5_member(attrs: dict) -> str | None:
     return "r{}i{}p{}".format(*parts)
 
 
-def _collect_identity(ds: xr.Dataset, path: Path, run: RunFiles, mismatches: list[str]) -> None:
+def _collect_identity(file_attrs, path: Path, run: RunFiles, mismatches: list[str]) -> None:
     """Note every identity attribute of one file that disagrees with the run's path.
 
     Runs are identified by their DRS path and file names (issue 11: one file's typo in ``source_id`` must not
     fail a model), so a disagreement is recorded with the file's name, never refused.
     """
-    found = {attr: str(ds.attrs[attr]).strip() for attr in _IDENTITY if ds.attrs.get(attr) is not None}
-    if "variant_label" not in found and (member := _cmip5_member(ds.attrs)) is not None:
+    found = {attr: str(file_attrs[attr]).strip() for attr in _IDENTITY if file_attrs.get(attr) is not None}
+    if "variant_label" not in found and (member := _cmip5_member(file_attrs)) is not None:
         found["realization/initialization_method/physics_version"] = member
     for attr, value in found.items():
         expected = getattr(run, _IDENTITY.get(attr, "member"))
@@ -456,20 +466,22 @@ def _collect_identity(ds: xr.Dataset, path: Path, run: RunFiles, mismatches: lis
             mismatches.append(f"{name_of(path)}: {attr}={value!r} (path: {expected!r})")
 
 
-def _run_attributes(run: RunFiles, mismatches: list[str], template: xr.Dataset, flags: list[str]) -> dict:
+def _run_attributes(run: RunFiles, mismatches: list[str], template: dict, flags: list[str]) -> dict:
+    """The run's attributes: who it is, its parent and branch time (from `template`, the global attributes of its
+    first file), the grid; flags it raises are appended to `flags`."""
     attrs = {"model": run.model, "member": run.member, "experiment_id": run.experiment_id, "mip_era": run.mip_era,
              "origin": run.origin}
     if mismatches:
         # the path names the run; the files' own attributes are kept for the report
         flags.append(ATTRIBUTE_MISMATCH)
         attrs["attribute_mismatch"] = "; ".join(dict.fromkeys(mismatches))
-    attrs["parent_experiment_id"] = str(template.attrs.get("parent_experiment_id", "")).strip()
-    attrs["parent_time_units"] = str(template.attrs.get("parent_time_units", "")).strip()
-    branch = template.attrs.get("branch_time_in_parent")
-    if branch is None and template.attrs.get("branch_time") is not None:
+    attrs["parent_experiment_id"] = str(template.get("parent_experiment_id", "")).strip()
+    attrs["parent_time_units"] = str(template.get("parent_time_units", "")).strip()
+    branch = template.get("branch_time_in_parent")
+    if branch is None and template.get("branch_time") is not None:
         # CMIP5: `branch_time` is in the parent's own time units, which the file does not repeat
         # (no parent_time_units); `extractor.control.branch_year` takes them from the control run
-        branch = template.attrs["branch_time"]
+        branch = template["branch_time"]
         attrs["branch_time_convention"] = "CMIP5"
     if branch is not None:
         try:

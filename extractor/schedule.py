@@ -20,8 +20,9 @@ from .diagnose import empty_steps, read_failure
 from .errors import ArchiveError
 from .filemeans import OPENING_LOCK, READ_THROUGH_XARRAY
 from .opened import close_opened_files, opened_by_this_task
+from .runjoin import file_task, join_run, run_weights
 from .runs import global_mean_series
-from .stores import is_url
+from .stores import is_url, is_zarr
 
 #: dask config key under which a batch declares how many bytes of input its graph reads, so that the scheduler
 #: chosen outside can size itself (a small batch is not worth starting worker processes for)
@@ -144,7 +145,59 @@ def _unreadable(run: RunFiles, err: BaseException) -> ArchiveError:
 
 def reduce_runs(runs: list[RunFiles], required: tuple[str, ...], progress: bool,
                 input_bytes: int | None = None) -> tuple[dict[str, xr.Dataset], dict[str, ArchiveError]]:
-    """Global-mean series of ``runs`` in one graph: ``({label: series}, {label: error})``.
+    """Global-mean series of ``runs``: ``({label: series}, {label: error})``.
+
+    Runs of local NetCDF files take the fast path first (`lean_graph`: every file one task that opens, checks and
+    reduces it, on whatever scheduler is in force; nothing is opened here); what it defers (`filefacts.Deferred`:
+    Zarr stores, remote files, unusual files, and every run with a problem) takes the reference path
+    (`reduce_runs_reference`), which names the problem.
+    """
+    series: dict[str, xr.Dataset] = {}
+    deferred = [run for run in runs if not _all_local_netcdf(run, required)]
+    lean = [run for run in runs if _all_local_netcdf(run, required)]
+    if lean:
+        client = distributed_client()
+        eager = client is None and not _runs_in_processes(input_bytes)
+        joins = [lean_graph(run, eager) for run in sorted(lean, key=_run_bytes, reverse=True)]
+        order = sorted(lean, key=_run_bytes, reverse=True)
+        with dask.config.set({BATCH_BYTES_KEY: input_bytes}):
+            values = compute_all(joins, progress) if client is None else compute_each_on_client(client, joins, progress)
+        for run, value in zip(order, values):
+            if isinstance(value, xr.Dataset) and empty_steps(value, run) is None:
+                series[run.label] = value
+            else:  # deferred, failed or with an empty month: the reference path says what is wrong
+                deferred.append(run)
+    if not deferred:
+        return series, {}
+    more, errors = reduce_runs_reference(deferred, required, progress, input_bytes)
+    series.update(more)
+    return series, errors
+
+
+def lean_graph(run: RunFiles, eager_weights: bool):
+    """The fast path's tasks for one run: its weights, one task per file, the join (`extractor.runjoin`)."""
+    token = dask.base.tokenize(run.label, [str(p) for p in run.all_files()])
+    weights = run_weights(run) if eager_weights else dask.delayed(run_weights, pure=True)(
+        run, dask_key_name=f"weights-{token}")
+    facts = {
+        variable: [dask.delayed(file_task, pure=True)(run, path, variable, weights,
+                                                      dask_key_name=f"file-{Path(path).name}-{token}")
+                   for path in paths]
+        for variable, paths in run.files.items()
+    }
+    return dask.delayed(join_run, pure=True)(run, weights, facts, dask_key_name=f"join-{token}")
+
+
+def _all_local_netcdf(run: RunFiles, required: tuple[str, ...]) -> bool:
+    files = run.all_files()
+    return (bool(files) and all(v in run.files for v in required)
+            and not any(is_url(p) or is_zarr(p) or not str(p).endswith(".nc") for p in files))
+
+
+def reduce_runs_reference(runs: list[RunFiles], required: tuple[str, ...], progress: bool,
+                          input_bytes: int | None = None) -> tuple[dict[str, xr.Dataset], dict[str, ArchiveError]]:
+    """Global-mean series of ``runs`` through xarray (the reference path), in one graph: ``({label: series},
+    {label: error})``.
 
     On the local pool of processes each run is one task that opens and reduces it (`open_and_reduce_run`), the
     largest runs first, so the last tasks to finish are short ones. On threads and on a distributed client the

@@ -40,10 +40,10 @@ def test_every_file_is_a_task_of_the_cluster_and_rows_match_the_local_scheduler(
         result = run_extract(clean_archive, tmp_path / "out")
     assert result.failures == []
     assert rows_by_model(result) == rows_by_model(clean)
-    # one read-and-reduce task per NetCDF file ran on the cluster, not one task per run: each file's delayed read
-    # becomes the one block of a dask array (`lazy_file_means`), a task named from-value-<token>
+    # one open-check-and-reduce task per NetCDF file ran on the cluster (`schedule.lean_graph`), not one task per
+    # run, and none in this process
     files = [p for p in clean_archive.rglob("*.nc") if not p.name.startswith("areacella")]
-    reads = {str(event["key"]) for event in stream.data if str(event["key"]).startswith("('from-value-")}
+    reads = {str(event["key"]) for event in stream.data if str(event["key"]).startswith("file-")}
     assert len(reads) == len(files) > len(result.rows)
 
 

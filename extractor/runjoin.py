@@ -20,7 +20,7 @@ from sensemble.contract.flags import TIME_TRIMMED
 from .catalog import RunFiles
 from .errors import ArchiveError
 from .filemeans import OPENING_LOCK
-from .filefacts import Deferred, FileFacts, read_file_facts
+from .filefacts import Deferred, FileFacts, dates, read_file_facts
 from .means import MIN_SPHERE_FRACTION, area_weights, find_lat_lon, labelled_mean, sphere_fraction
 from .runs import CALENDARS, _check_joins, _collect_identity, _run_attributes, open_area
 from .stores import open_dataset
@@ -133,7 +133,7 @@ def _join(run: RunFiles, weights: RunWeights | Deferred, facts: dict[str, list])
     if any(m.size != common.size for m in months.values()):
         flags.append(TIME_TRIMMED)
     ref_positions = np.flatnonzero(np.isin(months[reference], common))
-    times = np.concatenate([f.times for f in ordered[reference]])[ref_positions]
+    times = np.concatenate([dates(f.times, f.time_units, f.calendar) for f in ordered[reference]])[ref_positions]
     coords = {"time": times, **{name: xr.Variable((), value, dict(attrs)) for name, (value, attrs) in scalars.items()}}
     means = {}
     for variable, found in ordered.items():
@@ -143,7 +143,7 @@ def _join(run: RunFiles, weights: RunWeights | Deferred, facts: dict[str, list])
     out = xr.Dataset(means)
     time_attrs = {k: v for k, v in first.time_attrs.items() if k != "bounds"}
     if all(f.bounds is not None for f in ordered[reference]):
-        bounds = np.concatenate([f.bounds for f in ordered[reference]])[ref_positions]
+        bounds = np.concatenate([dates(f.bounds, *f.bounds_encoding) for f in ordered[reference]])[ref_positions]
         out["time_bnds"] = xr.DataArray(bounds, dims=("time", "bnds"), coords={"time": times},
                                         attrs=dict(first.bounds_attrs))
         time_attrs["bounds"] = "time_bnds"

@@ -29,6 +29,7 @@ from xarray.backends.locks import HDF5_LOCK, combine_locks
 
 from .means import labelled_mean, weighted_block_mean
 from .opened import in_task, share_handle, shared_handle
+from .rawchunks import RawChunkError, open_raw, read_raw_chunks
 from .stores import is_url, is_zarr, open_dataset
 
 # One lock per process around netCDF-C calls: the library is not thread-safe. Worker processes each have
@@ -122,11 +123,19 @@ def file_global_means(source: FileSource, weights: np.ndarray, handle=None) -> n
             step_bytes = int(np.prod([var.shape[a] for a in source.axes[1:]])) * var.dtype.itemsize
         slab = max(per_chunk, (SLAB_BYTES // max(1, step_bytes * per_chunk)) * per_chunk)
         time_axis = source.axes[0]
+        chunks = open_raw(source.path, source.variable) if raw and read_raw_chunks() else None
         for lo in range(0, source.steps, slab):
             index = [slice(None)] * len(source.axes)
             index[time_axis] = slice(lo, min(lo + slab, source.steps))
-            with NETCDF_LOCK:
-                block = var[tuple(index)] if raw else None
+            block = None
+            if chunks is not None:  # the same raw values, inflated outside HDF5 (rawchunks.py)
+                try:
+                    block = chunks.read(time_axis, lo, min(lo + slab, source.steps))
+                except RawChunkError:  # netCDF4 reads it, or says what is wrong with the file in its own words
+                    chunks = None
+            if chunks is None:
+                with NETCDF_LOCK:
+                    block = var[tuple(index)] if raw else None
             if block is None:
                 block = _decoded_by_xarray(source, tuple(index))
             block = _as_missing(np.asarray(block), fills)

@@ -85,6 +85,7 @@ class RawChunks:
         out = np.empty(out_shape, dtype=self.dtype)
         first = self.offsets[:, axis]
         wanted = np.flatnonzero((first < stop) & (first + self.chunk_shape[axis] > start))
+        wanted = wanted[np.argsort(first[wanted], kind="stable")]  # along time: neighbours decode together
         if wanted.size == 0:
             return out
         groups = np.array_split(wanted, min(wanted.size, 4 * READ_THREADS))
@@ -183,13 +184,14 @@ def _thread_pool() -> ThreadPoolExecutor:
 def _decode_group(index: RawChunks, fd: int, group: np.ndarray, out: np.ndarray, axis: int, start: int,
                   stop: int) -> None:
     """Read, inflate and unshuffle the chunks `group` of `index` and put their part of ``start:stop`` in `out`."""
-    nbytes = index.chunk_bytes
+    if _consecutive_whole_grid(index, group, axis):
+        per_run = max(1, _RUN_BYTES // index.chunk_bytes)
+        for lo in range(0, group.size, per_run):
+            _decode_run(index, fd, group[lo: lo + per_run], out, start, stop)
+        return
     for k in group:
-        compressed = os.pread(fd, int(index.sizes[k]), int(index.addresses[k]))
-        if len(compressed) != index.sizes[k]:
-            raise RawChunkError(f"{index.path}: chunk {k} of {index.variable} is cut short by the end of the file")
-        values = _unshuffle(_inflate(compressed, nbytes, index), index.dtype) if index.shuffle else \
-            np.frombuffer(_inflate(compressed, nbytes, index), dtype=index.dtype)
+        values = _unshuffle(_read_chunk(index, fd, k), index.dtype) if index.shuffle else \
+            np.frombuffer(_read_chunk(index, fd, k), dtype=index.dtype)
         chunk = values.reshape(index.chunk_shape)
         source, target = [], []
         for dim, (first, size, length) in enumerate(zip(index.offsets[k], index.chunk_shape, index.shape)):
@@ -197,6 +199,38 @@ def _decode_group(index: RawChunks, fd: int, group: np.ndarray, out: np.ndarray,
             source.append(slice(lo - first, hi - first))
             target.append(slice(lo - start, hi - start) if dim == axis else slice(lo, hi))
         out[tuple(target)] = chunk[tuple(source)]
+
+
+def _consecutive_whole_grid(index: RawChunks, group: np.ndarray, axis: int) -> bool:
+    """Whether the chunks of `group` follow one another along time (axis 0), each spanning the whole grid."""
+    if axis != 0 or index.chunk_shape[1:] != index.shape[1:]:
+        return False
+    first = index.offsets[group, 0]
+    return bool(np.array_equal(first, first[0] + index.chunk_shape[0] * np.arange(group.size)))
+
+
+def _decode_run(index: RawChunks, fd: int, group: np.ndarray, out: np.ndarray, start: int, stop: int) -> None:
+    """Chunks one after another along time, each the whole grid (the usual CMIP layouts): inflated into one
+    buffer and unshuffled together — numpy's per-call cost paid once per group, not once per chunk (a third of
+    the time with chunks of one 64×128 step)."""
+    nbytes = index.chunk_bytes
+    buffer = np.empty((group.size, nbytes), dtype=np.uint8)
+    for row, k in enumerate(group):
+        buffer[row] = np.frombuffer(_read_chunk(index, fd, k), dtype=np.uint8)
+    values = _unshuffle(buffer, index.dtype, group.size) if index.shuffle else buffer.view(index.dtype)
+    steps = index.chunk_shape[0]
+    first = int(index.offsets[group[0], 0])
+    lo, hi = max(start, first), min(stop, first + steps * group.size, index.shape[0])
+    values = values.reshape((group.size * steps,) + index.chunk_shape[1:])
+    out[lo - start: hi - start] = values[lo - first: hi - first]
+
+
+def _read_chunk(index: RawChunks, fd: int, k: int):
+    """Chunk `k` of `index`, read and inflated: its whole chunk's bytes (edge chunks are stored whole too)."""
+    compressed = os.pread(fd, int(index.sizes[k]), int(index.addresses[k]))
+    if len(compressed) != index.sizes[k]:
+        raise RawChunkError(f"{index.path}: chunk {k} of {index.variable} is cut short by the end of the file")
+    return _inflate(compressed, index.chunk_bytes, index)
 
 
 def _inflate(compressed: bytes, nbytes: int, index: RawChunks):
@@ -211,24 +245,26 @@ def _inflate(compressed: bytes, nbytes: int, index: RawChunks):
 
 
 _UNSIGNED = {2: np.uint16, 4: np.uint32, 8: np.uint64}
+# chunks decoded together stay within about this many bytes, so the unshuffle's passes over them hit the cache
+_RUN_BYTES = 2**20
 
 
-def _unshuffle(data, dtype: np.dtype) -> np.ndarray:
-    """Undo HDF5's shuffle filter: the chunk's first bytes of every value, then their second bytes, and so on
-    (HDF5 reference manual, H5Pset_shuffle); values read as little-endian.
+def _unshuffle(data, dtype: np.dtype, chunks: int = 1) -> np.ndarray:
+    """Undo HDF5's shuffle filter on `chunks` chunks one after another in `data`: each chunk holds the first bytes
+    of its values, then their second bytes, and so on (HDF5 reference manual, H5Pset_shuffle); little-endian.
 
     For 2-, 4- and 8-byte values the bytes are put back together with shifts and ors of whole byte planes —
     each a contiguous pass — which measured 5× faster than numpy's transposing copy of the (itemsize, n) bytes.
     """
     size = dtype.itemsize
-    planes = np.frombuffer(data, dtype=np.uint8).reshape(size, -1)
+    planes = np.frombuffer(data, dtype=np.uint8).reshape(chunks, size, -1)
     if size == 1:
-        return planes[0].view(dtype)
+        return planes.reshape(-1).view(dtype)
     if size not in _UNSIGNED:
-        return np.ascontiguousarray(planes.T).view(dtype).reshape(-1)
+        return np.ascontiguousarray(planes.transpose(0, 2, 1)).view(dtype).reshape(-1)
     word = _UNSIGNED[size]
-    values = planes[size - 1].astype(word)
+    values = planes[:, size - 1].astype(word)
     for byte in range(size - 2, -1, -1):
         values <<= word(8)
-        values |= planes[byte]
-    return values.view(dtype)
+        values |= planes[:, byte]
+    return values.view(dtype).reshape(-1)

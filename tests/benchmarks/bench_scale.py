@@ -46,6 +46,7 @@ import numpy as np
 if __package__ in (None, ""):  # run as a script: make `tests` importable
     sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
+from sensemble.extractor.rawchunks import RAW_CHUNKS_VARIABLE  # noqa: E402
 from tests.benchmarks.measure import MiB, _Poller, archive_for, load, needed_files, parse_years  # noqa: E402
 
 
@@ -90,13 +91,14 @@ def config_for(folder: Path, years: dict, compute: str) -> Path:
     return path
 
 
-def timed(command: list[str], cwd: Path) -> dict:
+def timed(command: list[str], cwd: Path, env: dict | None = None) -> dict:
     """Wall and CPU seconds of a command's whole process tree, and the peak RSS of each of its processes.
 
     CPU seconds are polled per process (worker processes of a pool are not all reaped by the command itself).
     """
     start = time.perf_counter()
-    proc = subprocess.Popen(command, cwd=cwd, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
+    proc = subprocess.Popen(command, cwd=cwd, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True,
+                            env=None if env is None else {**os.environ, **env})
     poller = _Poller(proc.pid)
     poller.start()
     _, err = proc.communicate()
@@ -110,8 +112,9 @@ def timed(command: list[str], cwd: Path) -> dict:
     return {"wall": wall, "cpu": cpu, "workers_mib": workers, "load": os.getloadavg()[0]}
 
 
-def floor(archive: Path, processes: int, folder: Path) -> dict:
-    """netCDF4 read + decompress of every needed file, the files dealt to `processes` processes (largest first)."""
+def floor(archive: Path, processes: int, folder: Path, raw: bool = False) -> dict:
+    """netCDF4 read + decompress of every needed file, the files dealt to `processes` processes (largest first);
+    `raw`: the same slabs read by extractor/rawchunks.py instead (netCDF4 where it falls back)."""
     files = sorted(needed_files(archive), key=lambda p: p.stat().st_size, reverse=True)
     shares = [files[i::processes] for i in range(processes)]
     lists = []
@@ -121,7 +124,8 @@ def floor(archive: Path, processes: int, folder: Path) -> dict:
         lists.append(listing)
     before = resource.getrusage(resource.RUSAGE_CHILDREN)
     start = time.perf_counter()
-    procs = [subprocess.Popen([sys.executable, str(HERE), "--child-read", str(listing)]) for listing in lists]
+    mode = ["--child-raw"] if raw else []
+    procs = [subprocess.Popen([sys.executable, str(HERE), "--child-read", str(listing), *mode]) for listing in lists]
     codes = [p.wait() for p in procs]
     wall = time.perf_counter() - start
     after = resource.getrusage(resource.RUSAGE_CHILDREN)
@@ -131,9 +135,12 @@ def floor(archive: Path, processes: int, folder: Path) -> dict:
     return {"wall": wall, "cpu": cpu, "workers_mib": [], "load": os.getloadavg()[0]}
 
 
-def child_read(listing: Path) -> None:
-    """One floor process: read and decompress its files, whole storage chunks per read, no masking."""
+def child_read(listing: Path, raw: bool = False) -> None:
+    """One floor process: read and decompress its files, whole storage chunks per read, no masking (`raw`: the
+    compressed variables' slabs through extractor/rawchunks.py, threads inflating outside HDF5)."""
     import netCDF4
+
+    from sensemble.extractor.rawchunks import open_raw
 
     for line in listing.read_text().splitlines():
         path = Path(line)
@@ -147,15 +154,16 @@ def child_read(listing: Path) -> None:
             per_chunk = chunking[0] if isinstance(chunking, list) else 1
             step_bytes = var[0].nbytes
             step = max(per_chunk, (64 * MiB // (step_bytes * per_chunk)) * per_chunk)
+            chunks = open_raw(path, var.name) if raw else None
             for lo in range(0, var.shape[0], step):
-                var[lo:lo + step]
+                chunks.read(0, lo, lo + step) if chunks else var[lo:lo + step]
 
 
-def extract(archive: Path, config: Path, out: Path) -> dict:
+def extract(archive: Path, config: Path, out: Path, env: dict | None = None) -> dict:
     shutil.rmtree(out, ignore_errors=True)
     command = [sys.executable, "-m", "sensemble.cli", "extract", str(archive), "--out", str(out), "--config",
                str(config), "--force", "--quiet"]
-    return timed(command, out.parent)
+    return timed(command, out.parent, env)
 
 
 def main() -> None:
@@ -170,9 +178,10 @@ def main() -> None:
                         help="columns to measure (e.g. default,processes with another installation's python, to "
                         "measure an earlier version: its default is that version's)")
     parser.add_argument("--child-read", help=argparse.SUPPRESS)
+    parser.add_argument("--child-raw", action="store_true", help=argparse.SUPPRESS)
     args = parser.parse_args()
     if args.child_read:
-        child_read(Path(args.child_read))
+        child_read(Path(args.child_read), args.child_raw)
         return
 
     n = args.workers
@@ -186,6 +195,13 @@ def main() -> None:
         "floor1": ("floor, 1 process", lambda a: floor(a, 1, work)),
         "floorN": (f"floor, {n} processes", lambda a: floor(a, n, work)),
         "default": ("extract, default", lambda a: extract(a, config_for(work, years, ""), work / "out")),
+        # raw storage chunks inflated outside HDF5 (extractor/rawchunks.py), against the same with netCDF4
+        "rawfloor1": ("raw chunks, 1 process", lambda a: floor(a, 1, work, raw=True)),
+        "rawfloorN": (f"raw chunks, {n} processes", lambda a: floor(a, n, work, raw=True)),
+        "default-netcdf4": ("extract, netCDF4 reads", lambda a: extract(
+            a, config_for(work, years, ""), work / "out", {RAW_CHUNKS_VARIABLE: "0"})),
+        "default-raw": ("extract, raw chunks", lambda a: extract(
+            a, config_for(work, years, ""), work / "out", {RAW_CHUNKS_VARIABLE: "1"})),
         "processes": (f"extract, processes ×{n}", lambda a: extract(
             a, config_for(work, years, f'[compute]\nkind = "processes"\nworkers = {n}\n'), work / "out")),
         "slurm": (f"extract, slurm ×{n}", lambda a: extract(

@@ -7,6 +7,9 @@ process pool (or a cluster) use every core at the speed of the disk: one process
 files (netCDF-C is not thread-safe, so threads of one process read one at a time), tasks are few and
 large, and no large array is ever passed between tasks or processes.
 
+Compressed NetCDF-4 files are read by `rawchunks` (storage chunks inflated outside HDF5's lock, in threads, bit
+for bit netCDF4's values); what it does not read (classic files, other filters, …) goes through netCDF4.
+
 Values are decoded as `xarray.decode_cf` decodes them on the other path (``_FillValue`` and
 ``missing_value`` cells are missing; packed integers unpacked by xarray itself), so both paths give
 bit-identical means.

@@ -46,7 +46,7 @@ READ_THREADS = max(1, len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffi
 
 #: whether the extractor reads compressed chunks here by default; the environment variable
 #: ``SENSEMBLE_RAW_CHUNKS`` (``1``/``0``) overrides it in every process of a batch, workers included
-RAW_CHUNKS_DEFAULT = False
+RAW_CHUNKS_DEFAULT = True
 RAW_CHUNKS_VARIABLE = "SENSEMBLE_RAW_CHUNKS"
 
 _log = logging.getLogger(__name__)

@@ -13,6 +13,10 @@ uncompressed. Each measurement is a fresh process, timed from outside as a whole
     needs a SLURM node, e.g. scripts/single-node-slurm.sh; the job's queueing and start are in the time; its CPU
     seconds are the client's and the scheduler's only: the workers run under slurmd, outside the process tree);
   - `sensemble extract` with kind = "threads", N threads (the default before issue 12).
+  - raw chunks, 1 process / N processes (`--only rawfloor1,rawfloorN`): the floor's slabs read by
+    extractor/rawchunks.py instead of netCDF4 (storage chunks inflated by libdeflate in threads, outside HDF5);
+  - `sensemble extract`, default, with raw chunk reads off and on (`--only default-netcdf4,default-raw`:
+    SENSEMBLE_RAW_CHUNKS=0 / 1 in its environment).
 The figure compared is the *marginal* time: the 2-model archive's time minus the 1-model archive's, so start-up
 (imports, pool or cluster start, catalogue) cancels and what remains is the cost of one more model's files.
 Beside each: MB of files per second of marginal time, CPU seconds of the whole process tree (user + sys: far less

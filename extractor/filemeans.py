@@ -141,12 +141,13 @@ def file_global_means(source: FileSource, weights: np.ndarray, handle=None) -> n
                     block = var[tuple(index)] if raw else None
             if block is None:
                 block = _decoded_by_xarray(source, tuple(index))
-            block = _as_missing(np.asarray(block), fills)
+            block = np.asarray(block)
             if source.axes != tuple(range(len(source.axes))):
                 block = block.transpose(source.axes)
-            if source.offset is not None:
-                block = block + source.offset
-            out[lo: lo + block.shape[0]] = weighted_block_mean(block, weights, n_grid)
+            if source.offset is not None:  # missing cells found before the offset moves them
+                block = _as_missing(block, fills) + source.offset
+            out[lo: lo + block.shape[0]] = weighted_block_mean(block, weights, n_grid,
+                                                               fills if source.offset is None else ())
     finally:
         if shared is None:
             with NETCDF_LOCK:

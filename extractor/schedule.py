@@ -153,13 +153,14 @@ def reduce_runs(runs: list[RunFiles], required: tuple[str, ...], progress: bool,
     (`reduce_runs_reference`), which names the problem.
     """
     series: dict[str, xr.Dataset] = {}
-    deferred = [run for run in runs if not _all_local_netcdf(run, required)]
-    lean = [run for run in runs if _all_local_netcdf(run, required)]
+    deferred, lean = [], []
+    for run in runs:
+        (lean if _all_local_netcdf(run, required) else deferred).append(run)
     if lean:
         client = distributed_client()
         eager = client is None and not _runs_in_processes(input_bytes)
-        joins = [lean_graph(run, eager) for run in sorted(lean, key=_run_bytes, reverse=True)]
-        order = sorted(lean, key=_run_bytes, reverse=True)
+        order = sorted(lean, key=_run_bytes, reverse=True)  # the largest first: the last tasks are short ones
+        joins = [lean_graph(run, eager) for run in order]
         with dask.config.set({BATCH_BYTES_KEY: input_bytes}):
             values = compute_all(joins, progress) if client is None else compute_each_on_client(client, joins, progress)
         for run, value in zip(order, values):

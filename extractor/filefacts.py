@@ -13,7 +13,7 @@ takes the reference path, which gives the same numbers and names the problem wit
 """
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import netCDF4
 import numpy as np
@@ -77,8 +77,8 @@ def _raw(var) -> np.ndarray:
     return np.asarray(var[...])
 
 
-def read_file_facts(run: RunFiles, path, variable: str, grid: tuple[str, str], weights: np.ndarray,
-                    read_values: bool = True) -> FileFacts | Deferred:
+def read_file_facts(run: RunFiles, path, variable: str, grid: tuple[str, str],
+                    weights: np.ndarray) -> FileFacts | Deferred:
     """The facts of one file of `run` (its `variable` on the run's `grid`, (lat, lon) dims of `weights`), or
     `Deferred` when the reference path must take the run."""
     try:
@@ -87,9 +87,12 @@ def read_file_facts(run: RunFiles, path, variable: str, grid: tuple[str, str], w
     except Exception as err:  # noqa: BLE001 — the reference path names the unreadable file
         return Deferred(f"cannot be opened ({type(err).__name__})")
     try:
-        with NETCDF_LOCK:
-            facts = _metadata(nc, run, path, variable, grid)
-        if isinstance(facts, Deferred) or not read_values:
+        try:
+            with NETCDF_LOCK:
+                facts = _metadata(nc, run, path, variable, grid)
+        except Exception as err:  # noqa: BLE001 — e.g. an unreadable coordinate: the reference path names it
+            return Deferred(f"metadata cannot be read ({type(err).__name__})")
+        if isinstance(facts, Deferred):
             return facts
         dims = nc.variables[variable].dimensions
         axes = (dims.index("time"), dims.index(grid[0]), dims.index(grid[1]))
@@ -98,7 +101,7 @@ def read_file_facts(run: RunFiles, path, variable: str, grid: tuple[str, str], w
             means = file_global_means(source, weights, handle=nc)
         except Exception as err:  # noqa: BLE001 — the reference path names the damaged file
             return Deferred(f"values cannot be read ({type(err).__name__})")
-        return FileFacts(**{**facts.__dict__, "means": means})
+        return replace(facts, means=means)
     finally:
         with NETCDF_LOCK:
             nc.close()

@@ -108,3 +108,20 @@ def test_what_the_fast_path_defers_gets_the_reference_paths_answer(tmp_path, cas
     assert series.keys() == ref_series.keys()
     for label in series:
         xr.testing.assert_identical(series[label], ref_series[label])
+
+
+def test_a_file_whose_metadata_cannot_be_read_defers_its_run_and_the_batch_goes_on(tmp_path, monkeypatch):
+    # a reading error inside the fast path's file task must not stop the batch's graph: the run goes to the
+    # reference path (common practice, no source: a batch records a failure and goes on)
+    from sensemble.extractor import filefacts
+
+    write_run(tmp_path, nyears=2)
+    runs = scan(tmp_path).runs
+
+    def unreadable(*args):
+        raise OSError("NetCDF: HDF error")
+
+    monkeypatch.setattr(filefacts, "_metadata", unreadable)
+    assert all(isinstance(fast(run), Deferred) for run in runs)
+    series, errors = reduce_runs(runs, REQUIRED, progress=False)
+    assert errors == {} and series.keys() == {run.label for run in runs}

@@ -8,7 +8,8 @@ files (netCDF-C is not thread-safe, so threads of one process read one at a time
 large, and no large array is ever passed between tasks or processes.
 
 Compressed NetCDF-4 files are read by `rawchunks` (storage chunks inflated outside HDF5's lock, in threads, bit
-for bit netCDF4's values); what it does not read (classic files, other filters, …) goes through netCDF4.
+for bit netCDF4's values) and classic files by `classicmap` (mapped, read by the reduction's own pass); what
+neither reads (other filters, the CDF-5 variant, …) goes through netCDF4.
 
 Values are decoded as `xarray.decode_cf` decodes them on the other path (``_FillValue`` and
 ``missing_value`` cells are missing; packed integers unpacked by xarray itself), so both paths give
@@ -32,6 +33,7 @@ from xarray.backends.locks import HDF5_LOCK, combine_locks
 
 from .means import labelled_mean, weighted_block_mean
 from .opened import in_task, share_handle, shared_handle
+from .classicmap import open_mapped
 from .rawchunks import RawChunkError, open_raw, read_raw_chunks
 from .stores import is_url, is_zarr, open_dataset
 
@@ -114,6 +116,7 @@ def file_global_means(source: FileSource, weights: np.ndarray, handle=None) -> n
             nc = netCDF4.Dataset(source.path, "r")
     else:
         nc = shared
+    chunks = mapped = None
     try:
         with NETCDF_LOCK:
             var = nc.variables[source.variable]
@@ -121,22 +124,30 @@ def file_global_means(source: FileSource, weights: np.ndarray, handle=None) -> n
             if raw:
                 var.set_auto_maskandscale(False)
             fills = _fill_values(var) if raw else ()
+            classic = nc.data_model.startswith("NETCDF3")
+            shape = var.shape
             chunking = var.chunking()
             per_chunk = chunking[source.axes[0]] if isinstance(chunking, list) else 1
             step_bytes = int(np.prod([var.shape[a] for a in source.axes[1:]])) * var.dtype.itemsize
         slab = max(per_chunk, (SLAB_BYTES // max(1, step_bytes * per_chunk)) * per_chunk)
         time_axis = source.axes[0]
-        chunks = open_raw(source.path, source.variable) if raw and read_raw_chunks() else None
+        if raw and read_raw_chunks():  # read outside netCDF-C: classic files mapped, compressed chunks inflated
+            if classic:
+                mapped = open_mapped(source.path, source.variable, shape)
+            else:
+                chunks = open_raw(source.path, source.variable)
         for lo in range(0, source.steps, slab):
             index = [slice(None)] * len(source.axes)
             index[time_axis] = slice(lo, min(lo + slab, source.steps))
             block = None
-            if chunks is not None:  # the same raw values, inflated outside HDF5 (rawchunks.py)
+            if mapped is not None:  # a view of the mapped file: the reduction's widening pass reads it (classicmap.py)
+                block = mapped.values[tuple(index)]
+            elif chunks is not None:  # the same raw values, inflated outside HDF5 (rawchunks.py)
                 try:
                     block = chunks.read(time_axis, lo, min(lo + slab, source.steps))
                 except RawChunkError:  # netCDF4 reads it, or says what is wrong with the file in its own words
                     chunks = None
-            if chunks is None:
+            if chunks is None and mapped is None:
                 with NETCDF_LOCK:
                     block = var[tuple(index)] if raw else None
             if block is None:
@@ -149,6 +160,9 @@ def file_global_means(source: FileSource, weights: np.ndarray, handle=None) -> n
             out[lo: lo + block.shape[0]] = weighted_block_mean(block, weights, n_grid,
                                                                fills if source.offset is None else ())
     finally:
+        block = None
+        if mapped is not None:
+            mapped.close()
         if shared is None:
             with NETCDF_LOCK:
                 nc.close()

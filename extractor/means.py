@@ -265,12 +265,13 @@ def weighted_block_mean(block: np.ndarray, weights: np.ndarray, n_grid_dims: int
     # the weights' total summed as each step's values are: a field of ones averages to exactly one
     den = np.full(x.shape[0], np.einsum("ij,j->i", np.ones((1, w.size)), w)[0], dtype=np.float64)
     fills = tuple(x.dtype.type(f) for f in fills)
+    floats = x.dtype.kind == "f"
     steps = max(1, _PASS_BYTES // (8 * max(1, w.size)))
     for lo in range(0, x.shape[0], steps):
         raw = x[lo: lo + steps]
         part = raw.astype(np.float64)
-        for fill in fills:
-            hit = raw == fill
+        for fill in fills:  # floats compared once widened (exact), in the pass that is in the cache
+            hit = (part == np.float64(fill)) if floats else (raw == fill)
             if hit.any():
                 part[hit] = np.nan
         rows = np.einsum("ij,j->i", part, w)

@@ -77,16 +77,68 @@ def file_task(run: RunFiles, path, variable: str, weights: RunWeights | Deferred
     return read_file_facts(run, path, variable, weights.grid, weights.values)
 
 
+@dataclass(frozen=True)
+class JoinedRun:
+    """A run joined and checked, before its dates are decoded and its Dataset built (`joined_dataset`): numbers,
+    attributes and names only, cheap to send between processes (a Dataset's cftime dates cost more to pickle and
+    unpickle than the join itself: 65 ms for a run of 150 years, against 25 ms to join it)."""
+
+    means: dict  # variable → (values, attrs)
+    times: list  # [(stored dates, units, calendar)] of the reference variable's files, in time order
+    bounds: list | None  # the same for its time bounds, or None
+    positions: np.ndarray  # the reference variable's steps kept (every variable has them)
+    scalars: dict  # scalar coordinate name → (value, attrs)
+    time_attrs: dict
+    bounds_attrs: dict
+    attrs: dict  # the run's
+
+
 def join_run(run: RunFiles, weights: RunWeights | Deferred, facts: dict[str, list]) -> xr.Dataset | Deferred:
     """The run's lazy-path result (`runs.global_mean_series`, computed) from its files' facts, in `run.files`'
     order; `Deferred` for anything the reference path must judge."""
+    return finish_join(join_numbers(run, weights, facts))
+
+
+def join_numbers(run: RunFiles, weights: RunWeights | Deferred, facts: dict[str, list]) -> JoinedRun | Deferred:
+    """`join_run` without its last step (`joined_dataset`): what a worker process sends back."""
     try:
         return _join(run, weights, facts)
     except Exception as err:  # noqa: BLE001 — never a guess: the reference path takes the run
         return Deferred(f"join ({type(err).__name__}: {err})")
 
 
-def _join(run: RunFiles, weights: RunWeights | Deferred, facts: dict[str, list]) -> xr.Dataset | Deferred:
+def finish_join(joined):
+    """`joined_dataset` of a `JoinedRun` (`Deferred` if its dates do not decode); anything else as it is."""
+    if not isinstance(joined, JoinedRun):
+        return joined
+    try:
+        return joined_dataset(joined)
+    except Exception as err:  # noqa: BLE001 — never a guess: the reference path takes the run
+        return Deferred(f"join ({type(err).__name__}: {err})")
+
+
+def joined_dataset(joined: JoinedRun) -> xr.Dataset:
+    """The run's Dataset, as `runs.global_mean_series` gives it, with its dates decoded (xarray's decoding)."""
+    times = np.concatenate([dates(*part) for part in joined.times])[joined.positions]
+    coords = {"time": times, **{name: xr.Variable((), value, dict(attrs))
+                                for name, (value, attrs) in joined.scalars.items()}}
+    means = {}
+    for variable, (values, var_attrs) in joined.means.items():
+        template = xr.DataArray(np.empty(0), dims=("x",), name=variable, attrs=dict(var_attrs))
+        means[variable] = labelled_mean(values, template, ("time",)).assign_coords(coords)
+    out = xr.Dataset(means)
+    time_attrs = dict(joined.time_attrs)
+    if joined.bounds is not None:
+        bounds = np.concatenate([dates(*part) for part in joined.bounds])[joined.positions]
+        out["time_bnds"] = xr.DataArray(bounds, dims=("time", "bnds"), coords={"time": times},
+                                        attrs=dict(joined.bounds_attrs))
+        time_attrs["bounds"] = "time_bnds"
+    out["time"].attrs = time_attrs
+    out.attrs = dict(joined.attrs)
+    return out
+
+
+def _join(run: RunFiles, weights: RunWeights | Deferred, facts: dict[str, list]) -> JoinedRun | Deferred:
     if isinstance(weights, Deferred):
         return weights
     for found in facts.values():
@@ -133,26 +185,18 @@ def _join(run: RunFiles, weights: RunWeights | Deferred, facts: dict[str, list])
     if any(m.size != common.size for m in months.values()):
         flags.append(TIME_TRIMMED)
     ref_positions = np.flatnonzero(np.isin(months[reference], common))
-    times = np.concatenate([dates(f.times, f.time_units, f.calendar) for f in ordered[reference]])[ref_positions]
-    coords = {"time": times, **{name: xr.Variable((), value, dict(attrs)) for name, (value, attrs) in scalars.items()}}
-    means = {}
-    for variable, found in ordered.items():
-        values = np.concatenate([f.means for f in found])[np.flatnonzero(np.isin(months[variable], common))]
-        template = xr.DataArray(np.empty(0), dims=("x",), name=variable, attrs=dict(found[0].var_attrs))
-        means[variable] = labelled_mean(values, template, ("time",)).assign_coords(coords)
-    out = xr.Dataset(means)
+    means = {variable: (np.concatenate([f.means for f in found])[np.flatnonzero(np.isin(months[variable], common))],
+                        dict(found[0].var_attrs))
+             for variable, found in ordered.items()}
     time_attrs = {k: v for k, v in first.time_attrs.items() if k != "bounds"}
+    bounds = None
     if all(f.bounds is not None for f in ordered[reference]):
-        bounds = np.concatenate([dates(f.bounds, *f.bounds_encoding) for f in ordered[reference]])[ref_positions]
-        out["time_bnds"] = xr.DataArray(bounds, dims=("time", "bnds"), coords={"time": times},
-                                        attrs=dict(first.bounds_attrs))
-        time_attrs["bounds"] = "time_bnds"
-    out["time"].attrs = time_attrs
+        bounds = [(f.bounds, *f.bounds_encoding) for f in ordered[reference]]
     attrs = _run_attributes(run, mismatches, first.attrs, flags)
     attrs["calendar"] = CALENDARS[first_calendar]
     attrs["time_units"] = first.time_units
     attrs["files"] = ";".join(str(p) for p in run.all_files())
     attrs["flags"] = ";".join(dict.fromkeys(flags + ([weights.flag] if weights.flag else [])))
     attrs["weights"] = weights.source
-    out.attrs = attrs
-    return out
+    return JoinedRun(means, [(f.times, f.time_units, f.calendar) for f in ordered[reference]], bounds, ref_positions,
+                     scalars, time_attrs, dict(first.bounds_attrs), attrs)

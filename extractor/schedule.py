@@ -20,7 +20,7 @@ from .diagnose import empty_steps, read_failure
 from .errors import ArchiveError
 from .filemeans import OPENING_LOCK, READ_THROUGH_XARRAY
 from .opened import close_opened_files, opened_by_this_task
-from .runjoin import file_task, join_run, run_weights
+from .runjoin import file_task, finish_join, join_numbers, run_weights
 from .runs import global_mean_series
 from .stores import is_url, is_zarr
 
@@ -164,6 +164,7 @@ def reduce_runs(runs: list[RunFiles], required: tuple[str, ...], progress: bool,
         with dask.config.set({BATCH_BYTES_KEY: input_bytes}):
             values = compute_all(joins, progress) if client is None else compute_each_on_client(client, joins, progress)
         for run, value in zip(order, values):
+            value = finish_join(value)  # dates decoded here: cftime dates are slow to send between processes
             if isinstance(value, xr.Dataset) and empty_steps(value, run) is None:
                 series[run.label] = value
             else:  # deferred, failed or with an empty month: the reference path says what is wrong
@@ -176,7 +177,8 @@ def reduce_runs(runs: list[RunFiles], required: tuple[str, ...], progress: bool,
 
 
 def lean_graph(run: RunFiles, eager_weights: bool):
-    """The fast path's tasks for one run: its weights, one task per file, the join (`extractor.runjoin`)."""
+    """The fast path's tasks for one run: its weights, one task per file, the join (`extractor.runjoin`; its value
+    a `JoinedRun`, whose Dataset the caller builds with `runjoin.finish_join`)."""
     token = dask.base.tokenize(run.label, [str(p) for p in run.all_files()])
     weights = run_weights(run) if eager_weights else dask.delayed(run_weights, pure=True)(
         run, dask_key_name=f"weights-{token}")
@@ -186,7 +188,7 @@ def lean_graph(run: RunFiles, eager_weights: bool):
                    for path in paths]
         for variable, paths in run.files.items()
     }
-    return dask.delayed(join_run, pure=True)(run, weights, facts, dask_key_name=f"join-{token}")
+    return dask.delayed(join_numbers, pure=True)(run, weights, facts, dask_key_name=f"join-{token}")
 
 
 def _all_local_netcdf(run: RunFiles, required: tuple[str, ...]) -> bool:

@@ -17,7 +17,7 @@ import xarray as xr
 
 from sensemble.contract.cf import CONVENTIONS, TEMPERATURE_DIFFERENCE, history_line
 
-from sensemble.contract.atomic import atomic_path
+from sensemble.contract.atomic import atomic_path, local_writes
 from .errors import EmulatorInputError
 from .gp import PathwayEmulator
 from .physics_mean import PhysicsMean
@@ -98,7 +98,7 @@ def save_emulator(emulator: PathwayEmulator, path, metadata: dict | None = None)
     }
     ds.attrs["checksum_sha256"] = _checksum(ds)
     path = Path(path)
-    with atomic_path(path) as tmp:
+    with atomic_path(path) as tmp, local_writes():
         ds.to_netcdf(tmp, engine="netcdf4")
     return path
 

@@ -18,7 +18,7 @@ import pandas as pd
 from sensemble.contract.cf import CONVENTIONS, TEMPERATURE_DIFFERENCE, history_line
 from sensemble.contract.table import COLUMN_META
 
-from sensemble.contract.atomic import atomic_path, write_csv
+from sensemble.contract.atomic import atomic_path, local_writes, write_csv
 from .ensemble import EnsembleEmulator
 from .errors import EmulatorInputError
 from .persist import save_emulator
@@ -68,7 +68,7 @@ def write_pathways_netcdf(ds, path, scenario):
             ds[name].attrs.setdefault("units", COLUMN_META[name][0])
     for name in ds.coords:
         ds[name].encoding["_FillValue"] = None
-    with atomic_path(path) as tmp:
+    with atomic_path(path) as tmp, local_writes():
         ds.to_netcdf(tmp, engine="netcdf4")
     return Path(path)
 

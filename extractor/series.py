@@ -8,7 +8,7 @@ import xarray as xr
 from sensemble.contract import series as schema
 from sensemble.contract.cf import anomaly_attributes
 
-from sensemble.contract.atomic import atomic_path
+from sensemble.contract.atomic import atomic_path, local_writes
 
 SERIES_VARIABLES = schema.VARIABLES
 
@@ -36,7 +36,7 @@ def series_group(ds: xr.Dataset, role: str) -> xr.Dataset:
 
 def write_series(path: Path, groups: dict[str, xr.Dataset], attrs: dict) -> Path:
     """One NetCDF file, one group per experiment, written atomically."""
-    with atomic_path(path) as tmp:
+    with atomic_path(path) as tmp, local_writes():
         root = xr.Dataset(attrs=attrs)
         root.to_netcdf(tmp, mode="w", engine="netcdf4")
         for name, ds in groups.items():

@@ -14,7 +14,7 @@ from sensemble.contract.cf import CONVENTIONS
 from sensemble.contract.table import (ALL_COLUMNS, COLUMN_META, COLUMNS, ECS_INTERVAL_METHODS, EXTRA_COLUMNS,  # noqa: F401
                                       NUMERIC, TABLE_CSV, TABLE_NC, TEXT_META, column_long_name)
 
-from sensemble.contract.atomic import atomic_path, write_text
+from sensemble.contract.atomic import atomic_path, local_writes, write_text
 
 
 def _cell(value) -> str:
@@ -70,7 +70,7 @@ def write_table(rows: list[dict], out_dir: str | Path, provenance: dict) -> tupl
     csv_path = write_text(out_dir / TABLE_CSV, table_csv(rows))
     nc_path = out_dir / TABLE_NC
     ds = table_dataset(rows, provenance)
-    with atomic_path(nc_path) as tmp:
+    with atomic_path(nc_path) as tmp, local_writes():
         ds.to_netcdf(tmp, engine="netcdf4")
     return csv_path, nc_path
 

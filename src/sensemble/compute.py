@@ -210,6 +210,9 @@ class LocalPool:
             return dask.threaded.get(dsk, keys, num_workers=self.workers, **kwargs)
         import dask.multiprocessing
 
+        # one task per submission (dask's multiprocessing default batches 6): a worker is never handed a batch of
+        # large files while the other has nothing left at the end of the graph
+        kwargs.setdefault("chunksize", 1)
         return dask.multiprocessing.get(dsk, keys, pool=self._pool(), num_workers=self.workers, **kwargs)
 
     def _pool(self):

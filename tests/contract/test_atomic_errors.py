@@ -39,3 +39,25 @@ def test_errors_keep_their_pieces_between_processes():
     # dask ships errors between worker processes through __reduce__; deepcopy takes the same path (no pickle here)
     back = copy.deepcopy(err)
     assert type(back) is ArchiveError and str(back) == str(err) and back.member == "r1i1p1f1"
+
+
+def test_writes_under_a_distributed_client_take_no_lock_of_the_cluster(tmp_path, monkeypatch):
+    # xarray's docs (backends.locks.get_write_lock): under a distributed client a NetCDF write takes a
+    # distributed.Lock, a round trip to the scheduler; an in-memory output must not
+    import dask.distributed
+    import distributed
+    import numpy as np
+    import xarray as xr
+
+    from sensemble.extractor.series import write_series
+
+    def refuse(*args, **kwargs):
+        raise AssertionError("a distributed lock was asked for")
+
+    ds = xr.Dataset({"tas": ("year", np.arange(3.0))}, coords={"year": [1, 2, 3]})
+    with distributed.Client(processes=False, n_workers=1, threads_per_worker=1, dashboard_address=None):
+        monkeypatch.setattr(distributed, "Lock", refuse)
+        monkeypatch.setattr(dask.distributed, "Lock", refuse)
+        path = write_series(tmp_path / "s.nc", {"abrupt": ds}, {"title": "t"})
+    with xr.open_dataset(path, group="abrupt") as back:
+        assert back["tas"].values.tolist() == [0.0, 1.0, 2.0]

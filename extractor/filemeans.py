@@ -53,8 +53,11 @@ OPENING_LOCK = _FILE_TASK_LOCK
 #: remote files, unusual dims), not by file tasks — the run's task reads those holding `OPENING_LOCK`
 READ_THROUGH_XARRAY = "sensemble_read_through_xarray"
 
-#: about this many bytes of decoded values in memory per read (whole storage chunks, at least one)
-SLAB_BYTES = 64 * 2**20
+#: about this many bytes of decoded values in memory per read (whole storage chunks, at least one). It bounds a
+#: worker's memory: with 64 MB, the peak RSS of a worker followed the archive's file lengths (243 MiB with 100-year
+#: files, 282 MiB once a second model stored whole 300-year runs in one file); with 16 MB it is 203–206 MiB on
+#: both, and reading is no slower (the scaling benchmark, `tests/benchmarks/bench_scale.py --memory`)
+SLAB_BYTES = 16 * 2**20
 
 # glibc allocator thresholds for worker processes whose environment froze them (see `_allocator_for_slabs`)
 _M_TRIM_THRESHOLD, _M_MMAP_THRESHOLD = -1, -3

@@ -22,7 +22,7 @@ PROFILE_KEY = "distributed.worker.profile.enabled"
 QUIET = {
     PROFILE_KEY: False,
     "distributed.admin.tick.interval": "1s",  # event-loop health check; a blocked loop is still reported after 3 s
-    "distributed.worker.memory.monitor-interval": "1s",  # pause/spill/terminate checks; a task holds ≤ 64 MB slabs
+    "distributed.worker.memory.monitor-interval": "1s",  # pause/spill/terminate checks; a task holds ≤ 16 MB slabs
     "distributed.admin.system-monitor.interval": "2s",  # CPU, memory, network figures for the dashboard
 }
 

@@ -36,6 +36,11 @@ before timing (as this script now does). The 1.15× goal is not met on this shar
 After the fast path (every file opened, checked and reduced in its own task without xarray), raw chunk reads and the
 one-pass reduction (`--repeat 2 --only floorN,rawfloorN,default,default-netcdf4,processes`, load 1.3–2.7): default
 0.84× the 2-process floor with 12 steps per chunk, 0.88× with 1 step, 3.8× classic; `processes` 1.10×, 1.18×, 9.5×.
+Measured 2026-12-03 (classic files mapped, joins sent back as numbers, outputs without the cluster's write lock,
+16 MB slabs; `--repeat 3 --only floorN,default,processes --memory`, two full rounds, the machine otherwise idle):
+default 1.17–1.44× with 12 steps per chunk and 1.08–1.18× with 1 step, `processes` 1.10–1.41× and 0.79–1.18×; one
+pair moves by ±1 s, so the two kinds cannot be told apart here; the classic floor's marginal time is within that
+noise of zero. Peak RSS of the largest `processes` worker: 203 / 206 / 205 MiB (base, 2× years, 2× models).
 """
 from __future__ import annotations
 

@@ -41,8 +41,12 @@ FILTER_DEFLATE, FILTER_SHUFFLE = 1, 2
 # HDF5 dataset layouts (H5Dpublic.h)
 LAYOUT_CHUNKED = 2
 
-#: threads that read and inflate chunks in one process (the chunks of one slab are dealt to them)
+#: threads that read and inflate chunks in one process (the chunks of one slab are dealt to them), unless the
+#: environment variable ``SENSEMBLE_READ_THREADS`` says otherwise (`read_threads`)
 READ_THREADS = max(1, len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else os.cpu_count() or 1)
+#: set by `sensemble.compute` in the worker processes it starts: their share of the machine's cores (one per worker
+#: when there are as many workers as cores), so that N workers do not start N threads each on an N-core node
+READ_THREADS_VARIABLE = "SENSEMBLE_READ_THREADS"
 
 #: whether the extractor reads compressed chunks here by default; the environment variable
 #: ``SENSEMBLE_RAW_CHUNKS`` (``1``/``0``) overrides it in every process of a batch, workers included
@@ -88,11 +92,12 @@ class RawChunks:
         wanted = wanted[np.argsort(first[wanted], kind="stable")]  # along time: neighbours decode together
         if wanted.size == 0:
             return out
-        groups = np.array_split(wanted, min(wanted.size, 4 * READ_THREADS))
+        threads = read_threads()
+        groups = np.array_split(wanted, min(wanted.size, 4 * threads))
         fd = os.open(self.path, os.O_RDONLY)
         try:
             work = [(self, fd, group, out, axis, start, stop) for group in groups]
-            if len(work) == 1 or READ_THREADS == 1:
+            if len(work) == 1 or threads == 1:
                 for item in work:
                     _decode_group(*item)
             else:
@@ -173,11 +178,18 @@ def _dataset_index(path: str, variable: str, dataset) -> RawChunks | str:
                      np.array([s for *_, s in found], dtype=np.int64))
 
 
+def read_threads() -> int:
+    """Chunk-reading threads of this process: ``SENSEMBLE_READ_THREADS`` if set to a positive number, else
+    `READ_THREADS`."""
+    setting = os.environ.get(READ_THREADS_VARIABLE, "").strip()
+    return int(setting) if setting.isdigit() and int(setting) > 0 else READ_THREADS
+
+
 def _thread_pool() -> ThreadPoolExecutor:
     """This process's pool of chunk readers (a forked child makes its own: a parent's threads do not follow)."""
     global _pool, _pool_pid
     if _pool is None or _pool_pid != os.getpid():
-        _pool, _pool_pid = ThreadPoolExecutor(READ_THREADS, thread_name_prefix="sensemble-chunks"), os.getpid()
+        _pool, _pool_pid = ThreadPoolExecutor(read_threads(), thread_name_prefix="sensemble-chunks"), os.getpid()
     return _pool
 
 

@@ -25,6 +25,7 @@ import dask
 
 from sensemble.cluster_config import job_script_exports, quiet_settings
 from sensemble.contract.constraints import Interval, MemorySize, Options, TimeLimit
+from sensemble.extractor.rawchunks import READ_THREADS_VARIABLE
 from sensemble.extractor.schedule import BATCH_BYTES_KEY
 
 #: Values of `ComputeSettings.kind`.
@@ -40,6 +41,16 @@ JOB_NAME = "sensemble-worker"
 LOG_FOLDER = "worker-logs"
 #: below this much input a batch runs on threads: a process pool's start (~1 s) would cost more than it saves
 SMALL_BATCH_BYTES = 64 * 2**20
+
+
+def read_threads_per_worker(workers: int) -> dict[str, str]:
+    """Environment for the worker processes of a local kind: each its share of this machine's cores for reading
+    compressed chunks (`extractor.rawchunks`), so that N workers on N cores do not start N reading threads each."""
+    return {READ_THREADS_VARIABLE: str(max(1, cores_available() // max(1, int(workers))))}
+
+
+def _set_environment(values: dict[str, str]) -> None:
+    os.environ.update(values)
 
 
 class ComputeError(RuntimeError):
@@ -137,6 +148,8 @@ def _job_kwargs(settings: ComputeSettings, batch: str | None = None, out_dir: st
         job_name=job_name(batch),
         job_extra_directives=list(settings.job_extra_directives),
         job_script_prologue=job_script_exports(quiet_settings(bool(settings.dashboard_address)))
+        # each worker process of a job reads with its own threads only (`read_threads_per_worker`)
+        + [f"export {READ_THREADS_VARIABLE}={settings.threads_per_worker}"]
         + list(settings.job_script_prologue),
     )
     optional = dict(
@@ -223,7 +236,8 @@ class LocalPool:
             context = multiprocessing.get_context("forkserver" if "forkserver" in methods else "spawn")
             if context.get_start_method() == "forkserver":
                 context.set_forkserver_preload(["sensemble.extractor.filemeans", "xarray"])
-            self._executor = ProcessPoolExecutor(self.workers, mp_context=context)
+            self._executor = ProcessPoolExecutor(self.workers, mp_context=context, initializer=_set_environment,
+                                                 initargs=(read_threads_per_worker(self.workers),))
         return self._executor
 
     def close(self) -> None:
@@ -283,6 +297,7 @@ def open_compute(settings: ComputeSettings, *, batch: str | None = None,
                     dashboard_address=settings.dashboard_address,
                     scheduler_kwargs=None if settings.dashboard_address else {"dashboard": False},
                     local_directory=settings.local_directory,
+                    env=read_threads_per_worker(settings.workers),
                 )
             except ValueError as error:  # e.g. a memory limit dask cannot read
                 raise ComputeError(f"compute kind 'processes': {_first_line(error)}") from error

@@ -41,6 +41,9 @@ Measured 2026-12-03 (classic files mapped, joins sent back as numbers, outputs w
 default 1.17–1.44× with 12 steps per chunk and 1.08–1.18× with 1 step, `processes` 1.10–1.41× and 0.79–1.18×; one
 pair moves by ±1 s, so the two kinds cannot be told apart here; the classic floor's marginal time is within that
 noise of zero. Peak RSS of the largest `processes` worker: 203 / 206 / 205 MiB (base, 2× years, 2× models).
+Then each worker read with its share of the cores (one thread each here, not two): default 0.82× / 0.96× / 5.7×
+(12 steps, 1 step, classic), `processes` 0.77× / 1.12× / 6.0×, marginal CPU 4.8 / 5.9 and 4.2 / 5.8 s against the
+floor's 6.1 / 6.5, load 1.5–1.8; peak RSS 182 / 185 / 183 MiB.
 """
 from __future__ import annotations
 

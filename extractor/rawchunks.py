@@ -13,10 +13,11 @@ caller's, as on the netCDF4 path.
 Handled: chunked layout; the deflate filter, with or without the shuffle filter before it; little-endian
 integer or float values; chunks that span the whole grid or tile it, and edge chunks (HDF5 stores them whole:
 the part beyond the variable's shape is dropped). Anything else is not read here — `open_raw` returns None and
-says why (`unsupported_reason`), and the caller reads the file through netCDF4 as before: classic (netCDF-3)
-files (mapped by `classicmap` instead, where it can), contiguous or compact layouts, any other filter (fletcher32 checksums, szip, scale-offset, plugins), a
-chunk whose filter mask says a filter was skipped, chunks never written (fill-value-only chunks: HDF5 would make
-them up from the fill value), big-endian values, a file with a user block, h5py not installed. Nothing is guessed:
+says why (`unsupported_reason`), and the caller reads the file through netCDF4 as before (or, for a classic
+file, maps it: `classicmap`): classic (netCDF-3) files, contiguous or compact layouts, any other filter
+(fletcher32 checksums, szip, scale-offset, plugins), a chunk whose filter mask says a filter was skipped, chunks
+never written (fill-value-only chunks: HDF5 would make them up from the fill value), big-endian values, a file
+with a user block, h5py not installed. Nothing is guessed:
 a chunk that does not inflate to its full size raises `RawChunkError`.
 """
 from __future__ import annotations

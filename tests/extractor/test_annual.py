@@ -136,3 +136,41 @@ def test_years_from_the_first_month_of_a_january_series_are_calendar_years():
     data = series("360_day", 1850, 36)
     a, b = annual_means(data), annual_means(data, start="first_month")
     xr.testing.assert_identical(a["tas"], b["tas"])
+
+
+def _loop_year_means(values, weights, years, kept):
+    """The plain per-year loop, one year's steps selected and summed alone (common practice, no source)."""
+    out = np.empty((kept.size,) + values.shape[1:])
+    for k, year in enumerate(kept):
+        sel = years == year
+        w = weights[sel].reshape((-1,) + (1,) * (values.ndim - 1))
+        out[k] = np.sum(values[sel] * w, axis=0) / np.sum(w)
+    return out
+
+
+@pytest.mark.parametrize("extra_dims", [(), (3,)])
+def test_year_means_are_bit_for_bit_the_per_year_loop(extra_dims):
+    # the grouped sums against a loop over the years; a gap, a duplicated month and an unsorted year included
+    from sensemble.extractor.annual import _weighted_year_means, _year_rows
+
+    rng = np.random.default_rng(7)
+    years = np.repeat(np.arange(1850, 1900), 12)
+    years = np.concatenate([years[:300], years[312:], [1851], [1849] * 12])  # 1875 missing, 1851 has 13 steps
+    values = rng.normal(288.0, 3.0, size=(years.size,) + extra_dims) * 10.0 ** rng.integers(-3, 4, years.size).reshape(
+        (-1,) + (1,) * len(extra_dims))
+    weights = rng.uniform(28.0, 31.0, years.size)
+    all_years, counts = np.unique(years, return_counts=True)
+    kept = all_years[counts == 12]
+    got = _weighted_year_means(values, weights, _year_rows(years, kept))
+    want = _loop_year_means(values, weights, years, kept)
+    assert got.shape == want.shape and kept[0] == 1849 and 1851 not in kept and 1875 not in kept
+    np.testing.assert_array_equal(got, want)
+
+
+def test_a_year_of_twelve_steps_in_fewer_months_is_not_complete():
+    # common practice, no source: twelve steps are a year only when they are twelve distinct months
+    data = series("noleap", 1850, 24)
+    months = [cftime.datetime(1850, m, 15, calendar="noleap") for m in [1, 1, *range(3, 13)]]
+    data = data.assign_coords(time=np.array(months + list(data["time"].values[12:])))
+    out = annual_means(data)
+    assert list(out["year"].values) == [1851] and out.attrs["partial_years_dropped"] == "1850"

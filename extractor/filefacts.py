@@ -151,8 +151,15 @@ def _metadata(nc, run: RunFiles, path, variable: str, grid: tuple[str, str]) -> 
 
 
 def dates(values: np.ndarray, units: str, calendar: str) -> np.ndarray:
-    """Stored dates decoded as the reference path decodes them (xarray's own function, cftime dates)."""
-    return decode_cf_datetime(values, units, calendar, use_cftime=True)
+    """Stored dates decoded as the reference path decodes them (xarray's own function, cftime dates).
+
+    Each distinct number is decoded once: time bounds share every inner edge with the next step's (2N numbers, N + 1
+    dates), and a date costs about 2.5 µs to build."""
+    values = np.asarray(values)
+    distinct, where = np.unique(values.ravel(), return_inverse=True)
+    if distinct.size == values.size:
+        return decode_cf_datetime(values, units, calendar, use_cftime=True)
+    return decode_cf_datetime(distinct, units, calendar, use_cftime=True)[where].reshape(values.shape)
 
 
 def _bounds(variables, time_attrs: dict, units: str, calendar: str):

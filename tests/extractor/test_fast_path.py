@@ -125,3 +125,21 @@ def test_a_file_whose_metadata_cannot_be_read_defers_its_run_and_the_batch_goes_
     assert all(isinstance(fast(run), Deferred) for run in runs)
     series, errors = reduce_runs(runs, REQUIRED, progress=False)
     assert errors == {} and series.keys() == {run.label for run in runs}
+
+
+@pytest.mark.parametrize("calendar", ["noleap", "360_day", "standard", "julian"])
+def test_bounds_decoded_once_per_distinct_number_are_xarrays_dates(calendar):
+    # time bounds share their inner edges: each distinct number decoded once gives xarray's decoding element by
+    # element (xarray's decode_cf_datetime is the reference)
+    from xarray.coding.times import decode_cf_datetime
+
+    from sensemble.extractor.filefacts import dates
+
+    edges = np.cumsum(np.r_[0.0, np.tile([31, 28, 31, 30, 31, 30, 31, 31, 30, 31, 30, 31], 3)]) + 0.25
+    bounds = np.stack([edges[:-1], edges[1:]], axis=1)
+    units = "days since 1850-01-01 00:00:00"
+    got = dates(bounds, units, calendar)
+    want = decode_cf_datetime(bounds, units, calendar, use_cftime=True)
+    assert got.shape == want.shape == (36, 2)
+    assert all(a == b and type(a) is type(b) for a, b in zip(got.ravel(), want.ravel()))
+    assert (dates(bounds[:, 0], units, calendar) == want[:, 0]).all()

@@ -20,9 +20,11 @@ import numpy as np
 from xarray.coding.times import decode_cf_datetime
 
 from .catalog import RunFiles
+from .classicmap import open_classic
 from .errors import ArchiveError
 from .filemeans import NETCDF_LOCK, FileSource, file_global_means
 from .means import lat_lon_names
+from .rawchunks import read_raw_chunks
 from .runs import CALENDARS, month_index, units_offset
 
 #: attributes xarray's CF decoding moves from a variable's ``attrs`` into its ``encoding`` (xarray's conventions)
@@ -81,11 +83,14 @@ def read_file_facts(run: RunFiles, path, variable: str, grid: tuple[str, str],
                     weights: np.ndarray) -> FileFacts | Deferred:
     """The facts of one file of `run` (its `variable` on the run's `grid`, (lat, lon) dims of `weights`), or
     `Deferred` when the reference path must take the run."""
-    try:
-        with NETCDF_LOCK:
-            nc = netCDF4.Dataset(str(path), "r")
-    except Exception as err:  # noqa: BLE001 — the reference path names the unreadable file
-        return Deferred(f"cannot be opened ({type(err).__name__})")
+    # a classic file's header read by scipy, its values mapped (classicmap.py); anything else through netCDF4
+    nc = open_classic(path) if read_raw_chunks() else None
+    if nc is None:
+        try:
+            with NETCDF_LOCK:
+                nc = netCDF4.Dataset(str(path), "r")
+        except Exception as err:  # noqa: BLE001 — the reference path names the unreadable file
+            return Deferred(f"cannot be opened ({type(err).__name__})")
     try:
         try:
             with NETCDF_LOCK:

@@ -33,7 +33,7 @@ from xarray.backends.locks import HDF5_LOCK, combine_locks
 
 from .means import labelled_mean, weighted_block_mean
 from .opened import in_task, share_handle, shared_handle
-from .classicmap import open_mapped
+from .classicmap import ClassicFile, open_mapped
 from .rawchunks import RawChunkError, open_raw, read_raw_chunks
 from .stores import is_url, is_zarr, open_dataset
 
@@ -108,7 +108,7 @@ class FileSource:
 
 def file_global_means(source: FileSource, weights: np.ndarray, handle=None) -> np.ndarray:
     """Area-weighted global mean of every time step of one file's variable (float64, missing cells left out);
-    `handle`: the file's open netCDF4 Dataset, if the caller has one (it stays open)."""
+    `handle`: the file's open netCDF4 Dataset (or `classicmap.ClassicFile`), if the caller has one (it stays open)."""
     _allocator_for_slabs()
     n_grid = weights.ndim
     out = np.empty(source.steps, dtype=np.float64)
@@ -135,7 +135,9 @@ def file_global_means(source: FileSource, weights: np.ndarray, handle=None) -> n
         slab = max(per_chunk, (SLAB_BYTES // max(1, step_bytes * per_chunk)) * per_chunk)
         time_axis = source.axes[0]
         if raw and read_raw_chunks():  # read outside netCDF-C: classic files mapped, compressed chunks inflated
-            if classic:
+            if isinstance(nc, ClassicFile):  # mapped when it was opened
+                mapped = nc.mapped(source.variable, shape)
+            elif classic:
                 mapped = open_mapped(source.path, source.variable, shape)
             else:
                 chunks = open_raw(source.path, source.variable)

@@ -112,3 +112,81 @@ def test_a_truncated_file_is_never_read_past_its_end(tmp_path, monkeypatch, reco
         stream.truncate(size - 4 * NLAT * NLON * 3)
     assert open_mapped(path, "tas", (STEPS, NLAT, NLON)) is None
     assert means(path, "1", monkeypatch).tobytes() == means(path, "0", monkeypatch).tobytes()
+
+
+def write_every_attribute(path, file_format):
+    """A classic file with an attribute of every type the format has, one value and several, and text with
+    non-ASCII characters, an embedded NUL and none at all; a scalar coordinate, integers and a record variable."""
+    with netCDF4.Dataset(path, "w", format=file_format) as nc:
+        nc.createDimension("time", None)
+        nc.createDimension("lat", 3)
+        nc.title = "Température — test"
+        nc.empty = ""
+        for name, dtype in [("b", "i1"), ("s", "i2"), ("i", "i4"), ("f", "f4"), ("d", "f8")]:
+            nc.setncattr(f"one_{name}", np.array([7], dtype=dtype))
+            nc.setncattr(f"many_{name}", np.array([1, -2, 3], dtype=dtype))
+        time = nc.createVariable("time", "f8", ("time",))
+        time.units, time.calendar = "days since 1850-01-01", "noleap"
+        var = nc.createVariable("tas", "f4", ("time", "lat"), fill_value=np.float32(1e20))
+        var.missing_value = np.float32(-999.0)
+        var.valid_range = np.array([100.0, 400.0], dtype="f4")
+        var.coordinates = "height"
+        var.note = "a\x00b"
+        height = nc.createVariable("height", "f8", ())
+        height.units = "m"
+        height[...] = 2.0
+        counts = nc.createVariable("counts", "i2", ("lat",))
+        counts[:] = [1, -2, 300]
+        time[:] = [15.5, 45.0]
+        var[:] = np.array([[280.0, 1e20, 290.5], [281.0, 282.0, np.nan]], dtype="f4")
+
+
+def assert_same_attribute(got, want):
+    assert type(got) is type(want)
+    if isinstance(want, np.ndarray):
+        assert got.dtype == want.dtype and got.tobytes() == want.tobytes()
+    else:
+        assert got == want
+
+
+@pytest.mark.parametrize("file_format", FORMATS)
+def test_a_classic_file_through_scipy_is_what_netcdf4_gives(tmp_path, file_format):
+    # netCDF4 (auto mask and scale off) is the reference for every attribute, dim, shape, dtype and value the fast
+    # path reads (common practice, no source)
+    path = tmp_path / "f.nc"
+    write_every_attribute(path, file_format)
+    mapped = classicmap.open_classic(path)
+    assert mapped is not None and mapped.data_model == file_format
+    try:
+        with netCDF4.Dataset(path) as nc:
+            assert mapped.ncattrs() == nc.ncattrs()
+            for name in nc.ncattrs():
+                assert_same_attribute(mapped.getncattr(name), nc.getncattr(name))
+            assert list(mapped.variables) == list(nc.variables)
+            for name, var in nc.variables.items():
+                var.set_auto_maskandscale(False)
+                other = mapped.variables[name]
+                other.set_auto_maskandscale(False)
+                assert (other.dimensions, other.ndim, other.shape, other.dtype) == (var.dimensions, var.ndim, var.shape,
+                                                                                    var.dtype)
+                assert other.ncattrs() == var.ncattrs() and other.chunking() == var.chunking()
+                for attr in var.ncattrs():
+                    assert_same_attribute(other.getncattr(attr), var.getncattr(attr))
+                want = np.asarray(var[...])
+                got = other[...]
+                assert got.dtype == want.dtype and got.shape == want.shape and got.tobytes() == want.tobytes()
+    finally:
+        mapped.close()
+
+
+def test_only_the_classic_variants_scipy_reads_are_opened_so(tmp_path):
+    # CDF-5 and netCDF-4 files are opened by netCDF4 (the magic numbers of the netCDF file format specification)
+    assert classicmap.open_classic(write_classic(tmp_path / "a.nc", file_format="NETCDF3_64BIT_DATA")) is None
+    with netCDF4.Dataset(tmp_path / "b.nc", "w", format="NETCDF4") as nc:
+        nc.createDimension("x", 1)
+    assert classicmap.open_classic(tmp_path / "b.nc") is None
+    assert classicmap.open_classic(tmp_path / "missing.nc") is None
+    truncated = write_classic(tmp_path / "c.nc", record=False)
+    with open(truncated, "r+b") as stream:
+        stream.truncate(truncated.stat().st_size // 2)
+    assert classicmap.open_classic(truncated) is None

@@ -11,6 +11,7 @@ import numpy as np
 import pytest
 import xarray as xr
 
+from sensemble.extractor import classicmap, filefacts
 from sensemble.extractor.catalog import scan
 from sensemble.extractor.filefacts import Deferred
 from sensemble.extractor.runjoin import file_task, join_run, run_weights
@@ -74,12 +75,16 @@ def in_layout(src, dst, layout):
 
 @pytest.mark.parametrize("layout", list(LAYOUTS))
 @pytest.mark.parametrize("case", CASES)
-def test_fast_path_gives_the_reference_paths_dataset_to_the_bit(tmp_path, case, layout):
+def test_fast_path_gives_the_reference_paths_dataset_to_the_bit(tmp_path, monkeypatch, case, layout):
     root = in_layout(archive(tmp_path / "src", case), tmp_path / layout, layout)
     runs = scan(root).runs
     assert runs
+    opened = []  # classic files: their headers read by scipy, not netCDF4 (classicmap.ClassicFile)
+    monkeypatch.setattr(filefacts, "open_classic", lambda path: opened.append(classicmap.open_classic(path)) or opened[-1])
     for run in runs:
         got = fast(run)
+        mapped = [handle for handle in opened if handle is not None]
+        assert opened and (len(mapped) == len(opened) if layout == "classic" else not mapped)
         assert not isinstance(got, Deferred), got
         xr.testing.assert_identical(got, global_mean_series(run).compute())
         for name in got.data_vars:  # identical values, not merely close ones

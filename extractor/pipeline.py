@@ -2,12 +2,14 @@
 
 The batch's stages each live in their own module: planning (`units`), the per-run cache (`cache`), the one
 dask compute (`schedule`), per-model science (`science`), series files (`series`), failure messages
-(`diagnose`). One `dask.compute` reads every needed file once for the whole batch; everything after it works
-on small annual series. A model whose files are bad is recorded as failed and the batch goes on.
+(`diagnose`). One `dask.compute` reads every needed file once for the whole batch and fits, on the workers, every
+model and member whose runs all took the fast path; the main process fits the rest on small annual series, and
+writes. A model whose files are bad is recorded as failed and the batch goes on.
 """
 from __future__ import annotations
 
 import dataclasses
+import functools
 import json
 import time
 from pathlib import Path
@@ -27,7 +29,7 @@ from .figures import ensemble_summary, gregory_plot
 from .lock import output_lock
 from .outcome import ExtractionResult, Failure
 from .report import write_report
-from .schedule import reduce_runs
+from .schedule import FitFailed, reduce_and_fit
 from .science import unit_science
 from .series import write_series
 from .settings import ExtractionSettings
@@ -106,16 +108,19 @@ def _extract_locked(archive, out_dir: Path, settings: ExtractionSettings, *, for
     runs = list({run.label: run for unit in todo for run in unit.runs()}.values())
     files = {p for unit in todo for r in unit.runs() for p in r.all_files()}
     log(f"reducing {len(runs)} runs ({len(files)} files) in one pass")
-    series, broken = reduce_runs(runs, settings.required_variables, progress,
-                                 input_bytes=sum(stats[p].st_size for p in files))
-    for label, ds in series.items():
-        if ds.attrs.get("attribute_mismatch"):
+    reduced = reduce_and_fit(runs, settings.required_variables, progress,
+                             input_bytes=sum(stats[p].st_size for p in files), units=todo,
+                             fit=functools.partial(unit_science, settings=settings))
+    series, broken = reduced.series, reduced.errors
+    for label, attrs in reduced.attrs.items():
+        if attrs.get("attribute_mismatch"):
             notes.append(f"{label}: file attributes disagree with the path, which names the run (flag "
-                         f"attribute_mismatch): {ds.attrs['attribute_mismatch']}")
+                         f"attribute_mismatch): {attrs['attribute_mismatch']}")
 
     computed = []
     for position, unit in enumerate(todo, start=1):
-        log(f"{position}/{len(todo)} {unit.model} {unit.member}: fitting")
+        science = reduced.fitted.get(unit.key)
+        log(f"{position}/{len(todo)} {unit.model} {unit.member}: " + ("fitting" if science is None else "fitted"))
         bad = [r for r in unit.runs() if r.label in broken]
         essential = [r for r in bad if r is unit.control or r is unit.abrupt]
         for run in bad:
@@ -128,7 +133,7 @@ def _extract_locked(archive, out_dir: Path, settings: ExtractionSettings, *, for
                                        others=[r for r in unit.others if r not in bad],
                                        flags=unit.flags + [RUN_FAILED])
         try:
-            rows.append(_finish_unit(unit, series, settings, out_dir, fps[unit.key], figures))
+            rows.append(_finish_unit(unit, series, settings, out_dir, fps[unit.key], figures, science))
             computed.append(unit.key)
         except ArchiveError as err:
             failures.append(Failure(unit.model, unit.member, err.experiment_id or "model", str(err),
@@ -155,9 +160,13 @@ def _extract_locked(archive, out_dir: Path, settings: ExtractionSettings, *, for
 
 
 def _finish_unit(unit: Unit, series: dict, settings: ExtractionSettings, out_dir: Path, fp: str,
-                 figures: bool) -> dict:
-    """One unit's science, then its series file (with the cache record) and its Gregory plot; returns its row."""
-    science = unit_science(unit, series, settings)
+                 figures: bool, science=None) -> dict:
+    """One unit's science (`science`: as the graph fitted it, if it did), then its series file (with the cache
+    record) and its Gregory plot; returns its row."""
+    if isinstance(science, FitFailed):
+        raise science.error
+    if science is None:
+        science = unit_science(unit, series, settings)
     row = science.row.as_dict()
     control_id, abrupt_id, onepct_id = settings.roles(unit.mip_era)
     attrs = {

@@ -24,7 +24,9 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy.stats import norm, t as student_t
+# the normal and Student-t quantiles from scipy.special, the functions scipy.stats' norm.ppf and t.ppf call: the
+# same numbers without importing scipy.stats (0.4 s in every worker process that fits)
+from scipy.special import ndtri, stdtrit
 
 from sensemble.extractor.gregory import FitWindowError, GregoryFit, _pairs
 from sensemble.extractor.settings import ExtractionSettings
@@ -78,7 +80,7 @@ def ecs_interval(erf: float, feedback: float, covariance, forcing_ratio: float =
     """
     if not 0 < level < 1:
         raise ValueError(f"interval level must be between 0 and 1; got {level}")
-    z = float(norm.ppf(0.5 + level / 2) if math.isinf(dof) else student_t.ppf(0.5 + level / 2, dof))
+    z = float(ndtri(0.5 + level / 2) if math.isinf(dof) else stdtrit(dof, 0.5 + level / 2))
     (v_ff, v_fl), (_, v_ll) = np.asarray(covariance, dtype=np.float64)
     # (erf + u·feedback)² ≤ z² (v_ff + 2u v_fl + u² v_ll) with u = forcing_ratio·θ: a u² + 2b u + c ≤ 0
     a = feedback * feedback - z * z * v_ll

@@ -44,6 +44,10 @@ noise of zero. Peak RSS of the largest `processes` worker: 203 / 206 / 205 MiB (
 Then each worker read with its share of the cores (one thread each here, not two): default 0.82× / 0.96× / 5.7×
 (12 steps, 1 step, classic), `processes` 0.77× / 1.12× / 6.0×, marginal CPU 4.8 / 5.9 and 4.2 / 5.8 s against the
 floor's 6.1 / 6.5, load 1.5–1.8; peak RSS 182 / 185 / 183 MiB.
+Then each model fitted on a worker in the batch's graph, classic headers read by scipy, the main process's per-run
+work cut down (same command, load 1.6–2.0): default 0.60× / 0.94× / (3.6×), `processes` 0.84× / 1.11× / (2.3×),
+marginal CPU 4.4 / 5.8 / 1.6 and 4.7 / 6.8 / 0.9 s against the floor's 6.2 / 6.3 / 0.8; the classic floor's
+marginal wall time was 0.2 s (−0.1–0.9), noise around zero, so its ratios mean nothing; peak RSS 208 / 211 / 210 MiB.
 """
 from __future__ import annotations
 

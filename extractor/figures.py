@@ -1,6 +1,7 @@
 """Figures of the extraction: a Gregory plot per run and an ensemble summary."""
 from __future__ import annotations
 
+import io
 from pathlib import Path
 
 import matplotlib
@@ -19,8 +20,24 @@ def _save(fig, path: Path) -> Path:
     return path
 
 
-def gregory_plot(delta_t, delta_n, row: dict, settings, path: str | Path) -> Path:
-    """Annual (ΔT, ΔN) points coloured by year, the fit over the fit window, early/late segments, ECS marked."""
+def _png(fig) -> bytes:
+    stream = io.BytesIO()
+    fig.savefig(stream, format="png", dpi=110)
+    plt.close(fig)
+    return stream.getvalue()
+
+
+def write_png(png: bytes, path: str | Path) -> Path:
+    """A figure drawn elsewhere (`gregory_png`, on a worker) written to `path` atomically."""
+    path = Path(path)
+    with atomic_path(path) as tmp:
+        Path(tmp).write_bytes(png)
+    return path
+
+
+def gregory_png(delta_t, delta_n, row: dict, settings) -> bytes:
+    """Annual (ΔT, ΔN) points coloured by year, the fit over the fit window, early/late segments, ECS marked: the
+    PNG's bytes (drawn where the model is fitted, written by the caller)."""
     delta_t = np.asarray(delta_t, dtype=float)
     delta_n = np.asarray(delta_n, dtype=float)
     years = np.arange(1, delta_t.size + 1)
@@ -55,7 +72,7 @@ def gregory_plot(delta_t, delta_n, row: dict, settings, path: str | Path) -> Pat
     ax.set_title(f"Gregory plot: {row['model']} {row['member']}")
     ax.legend(fontsize=8, loc="upper right")
     fig.tight_layout()
-    return _save(fig, Path(path))
+    return _png(fig)
 
 
 def ensemble_summary(rows: list[dict], path: str | Path) -> Path:

@@ -25,12 +25,12 @@ from .cache import cached_row, file_stats, fingerprint, settings_record
 from .catalog import scan
 from .diagnose import message, nothing_to_extract, one_line
 from .errors import ArchiveError
-from .figures import ensemble_summary, gregory_plot
+from .figures import ensemble_summary, gregory_png, write_png
 from .lock import output_lock
 from .outcome import ExtractionResult, Failure
 from .report import write_report
 from .schedule import FitFailed, reduce_and_fit
-from .science import unit_science
+from .science import UnitScience, unit_science
 from .series import write_series
 from .settings import ExtractionSettings
 from .table import write_table
@@ -110,7 +110,7 @@ def _extract_locked(archive, out_dir: Path, settings: ExtractionSettings, *, for
     log(f"reducing {len(runs)} runs ({len(files)} files) in one pass")
     reduced = reduce_and_fit(runs, settings.required_variables, progress,
                              input_bytes=sum(stats[p].st_size for p in files), units=todo,
-                             fit=functools.partial(unit_science, settings=settings))
+                             fit=functools.partial(fit_unit, settings=settings, figures=figures))
     series, broken = reduced.series, reduced.errors
     for label, attrs in reduced.attrs.items():
         if attrs.get("attribute_mismatch"):
@@ -119,8 +119,8 @@ def _extract_locked(archive, out_dir: Path, settings: ExtractionSettings, *, for
 
     computed = []
     for position, unit in enumerate(todo, start=1):
-        science = reduced.fitted.get(unit.key)
-        log(f"{position}/{len(todo)} {unit.model} {unit.member}: " + ("fitting" if science is None else "fitted"))
+        fitted = reduced.fitted.get(unit.key)
+        log(f"{position}/{len(todo)} {unit.model} {unit.member}: " + ("fitting" if fitted is None else "fitted"))
         bad = [r for r in unit.runs() if r.label in broken]
         essential = [r for r in bad if r is unit.control or r is unit.abrupt]
         for run in bad:
@@ -133,7 +133,7 @@ def _extract_locked(archive, out_dir: Path, settings: ExtractionSettings, *, for
                                        others=[r for r in unit.others if r not in bad],
                                        flags=unit.flags + [RUN_FAILED])
         try:
-            rows.append(_finish_unit(unit, series, settings, out_dir, fps[unit.key], figures, science))
+            rows.append(_finish_unit(unit, series, settings, out_dir, fps[unit.key], figures, fitted))
             computed.append(unit.key)
         except ArchiveError as err:
             failures.append(Failure(unit.model, unit.member, err.experiment_id or "model", str(err),
@@ -159,14 +159,34 @@ def _extract_locked(archive, out_dir: Path, settings: ExtractionSettings, *, for
     return result
 
 
+@dataclasses.dataclass
+class Fitted:
+    """One unit fitted where its runs were joined (`schedule.reduce_and_fit`): its science and its Gregory plot."""
+
+    science: UnitScience
+    gregory_png: bytes | None
+
+
+def fit_unit(unit: Unit, series: dict, settings: ExtractionSettings, figures: bool) -> Fitted:
+    """A unit's science and, with `figures`, its Gregory plot drawn (matplotlib costs 0.35 s a plot: drawn on the
+    worker, written by the main process)."""
+    science = unit_science(unit, series, settings)
+    png = None
+    if figures and science.abrupt is not None:
+        png = gregory_png(science.abrupt["tas"].values, science.abrupt["rtnt"].values, science.row.as_dict(),
+                          settings)
+    return Fitted(science, png)
+
+
 def _finish_unit(unit: Unit, series: dict, settings: ExtractionSettings, out_dir: Path, fp: str,
-                 figures: bool, science=None) -> dict:
-    """One unit's science (`science`: as the graph fitted it, if it did), then its series file (with the cache
+                 figures: bool, fitted: Fitted | FitFailed | None = None) -> dict:
+    """One unit's science (`fitted`: as the graph fitted it, if it did), then its series file (with the cache
     record) and its Gregory plot; returns its row."""
-    if isinstance(science, FitFailed):
-        raise science.error
-    if science is None:
-        science = unit_science(unit, series, settings)
+    if isinstance(fitted, FitFailed):
+        raise fitted.error
+    if fitted is None:
+        fitted = fit_unit(unit, series, settings, figures)
+    science = fitted.science
     row = science.row.as_dict()
     control_id, abrupt_id, onepct_id = settings.roles(unit.mip_era)
     attrs = {
@@ -187,7 +207,6 @@ def _finish_unit(unit: Unit, series: dict, settings: ExtractionSettings, out_dir
         schema.INPUT_FILES: "\n".join(str(p) for r in unit.runs() for p in r.all_files()),
     }
     write_series(out_dir / schema.SERIES_FOLDER / series_file_name(unit.model, unit.member), science.groups, attrs)
-    if figures and science.abrupt is not None:
-        gregory_plot(science.abrupt["tas"].values, science.abrupt["rtnt"].values, row, settings,
-                     out_dir / "figures" / f"gregory_{safe_name(unit.key)}.png")
+    if fitted.gregory_png is not None:
+        write_png(fitted.gregory_png, out_dir / "figures" / f"gregory_{safe_name(unit.key)}.png")
     return row

@@ -87,3 +87,18 @@ def test_the_batchs_table_is_the_same_whoever_fits(clean, clean_archive, tmp_pat
                         lambda *args, **kwargs: real(*args, **{**kwargs, "fit": None}))
     main_only = run_extract(clean_archive, tmp_path / "out")
     assert main_only.rows == clean.rows and not main_only.failures
+
+
+def test_gregory_plots_drawn_where_the_model_is_fitted_are_the_main_processes(clean_archive, tmp_path, monkeypatch):
+    # drawn on a worker and written by the main process, or drawn and written by the main process: the same PNG
+    in_graph = run_extract(clean_archive, tmp_path / "graph", figures=True)
+    real = schedule.reduce_and_fit
+    monkeypatch.setattr("sensemble.extractor.pipeline.reduce_and_fit",
+                        lambda *args, **kwargs: real(*args, **{**kwargs, "fit": None}))
+    in_main = run_extract(clean_archive, tmp_path / "main", figures=True)
+    plots = sorted(p.name for p in (tmp_path / "graph" / "figures").glob("gregory_*.png"))
+    assert len(plots) == len(in_graph.rows) == len(in_main.rows) == 2
+    for name in plots:
+        png = (tmp_path / "graph" / "figures" / name).read_bytes()
+        assert png.startswith(b"\x89PNG\r\n\x1a\n")  # the PNG signature (PNG specification)
+        assert png == (tmp_path / "main" / "figures" / name).read_bytes()

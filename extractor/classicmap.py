@@ -41,6 +41,11 @@ class MappedVariable:
             _close(self._file)
 
 
+def _plain_numbers(values, shape: tuple[int, ...]) -> bool:
+    """Whether a mapped variable's values can be read as they lie: numbers, of the shape netCDF4 reports."""
+    return isinstance(values, np.ndarray) and values.dtype.kind in "fiu" and tuple(values.shape) == tuple(shape)
+
+
 def _close(handle) -> None:
     with warnings.catch_warnings():  # scipy warns when views may outlive the map; ours are the caller's slabs
         warnings.simplefilter("ignore", RuntimeWarning)
@@ -63,7 +68,7 @@ def open_mapped(path, variable: str, shape: tuple[int, ...]) -> MappedVariable |
     mapped = MappedVariable(str(path), variable, None, handle)
     var = handle.variables.get(variable)
     values = None if var is None else var.data
-    if (not isinstance(values, np.ndarray) or values.dtype.kind not in "fiu" or tuple(values.shape) != tuple(shape)):
+    if not _plain_numbers(values, shape):
         _log.debug("%s: %s read through netCDF4: not a plain numeric variable of shape %s", path, variable, shape)
         mapped.close()
         return None
@@ -132,7 +137,7 @@ class ClassicFile:
     def mapped(self, variable: str, shape: tuple[int, ...]) -> MappedVariable | None:
         """`variable`'s values as a view of the map (closed with this file, not by the view), or None."""
         values = self._handle.variables[variable].data
-        if values.dtype.kind not in "fiu" or tuple(values.shape) != tuple(shape):
+        if not _plain_numbers(values, shape):
             return None
         return MappedVariable(self.path, variable, values, None)
 

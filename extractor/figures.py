@@ -14,10 +14,7 @@ from sensemble.contract.atomic import atomic_path  # noqa: E402
 
 
 def _save(fig, path: Path) -> Path:
-    with atomic_path(path) as tmp:
-        fig.savefig(tmp, format="png", dpi=110)
-    plt.close(fig)
-    return path
+    return write_png(_png(fig), path)
 
 
 def _png(fig) -> bytes:

@@ -205,10 +205,10 @@ def reduce_and_fit(runs: list[RunFiles], required: tuple[str, ...], progress: bo
             if run.label in fitted_only and isinstance(value, JoinedRun):  # its unit's fit built its series
                 reduced.attrs[run.label] = value.attrs
                 continue
-            value = finish_join(value)  # dates decoded here: cftime dates are slow to send between processes
-            if isinstance(value, xr.Dataset) and empty_steps(value, run) is None:
-                reduced.series[run.label] = value
-                reduced.attrs[run.label] = value.attrs
+            series = _finished(value, run)  # dates decoded here: cftime dates are slow to send between processes
+            if series is not None:
+                reduced.series[run.label] = series
+                reduced.attrs[run.label] = series.attrs
             else:  # deferred, failed or with an empty month: the reference path says what is wrong
                 deferred.append(run)
     if deferred:
@@ -236,14 +236,20 @@ def fit_in_task(fit: Callable, unit, joined: dict[str, object]):
     reference path judges it)."""
     series = {}
     for run in unit.runs():
-        value = finish_join(joined[run.label])
-        if not isinstance(value, xr.Dataset) or empty_steps(value, run) is not None:
+        series[run.label] = _finished(joined[run.label], run)
+        if series[run.label] is None:
             return NOT_FITTED
-        series[run.label] = value
     try:
         return fit(unit, series)
     except Exception as err:  # noqa: BLE001 — the caller records it as it records a fit of its own that fails
         return FitFailed(err)
+
+
+def _finished(joined, run: RunFiles) -> xr.Dataset | None:
+    """The run's series from its join task's value, or None when the fast path did not finish it (deferred, failed,
+    or a month without any valid cell: the reference path judges it)."""
+    value = finish_join(joined)
+    return value if isinstance(value, xr.Dataset) and empty_steps(value, run) is None else None
 
 
 def _used_only_by(units: list, keys: set[str]) -> set[str]:

@@ -5,6 +5,7 @@ the inverse variance of its errors (the table's ``*_odr`` columns).
 """
 from __future__ import annotations
 
+import threading
 import warnings
 from dataclasses import dataclass
 
@@ -14,6 +15,23 @@ from sensemble.extractor.gregory import FitWindowError, _ecs, _ols, _pairs
 from sensemble.extractor.settings import ExtractionSettings
 
 _DEFAULTS = ExtractionSettings()
+_IMPORT_LOCK = threading.Lock()
+_odr_module = None
+
+
+def _odr():
+    """scipy.odr, imported once per process under a lock: `warnings.catch_warnings` changes the process's warning
+    filters, so fits running in several threads must not enter it at the same time."""
+    global _odr_module
+    with _IMPORT_LOCK:
+        if _odr_module is None:
+            with warnings.catch_warnings():
+                # scipy >= 1.17 announces the module's move to a separate package; it still works here
+                warnings.simplefilter("ignore", DeprecationWarning)
+                from scipy import odr
+
+            _odr_module = odr
+    return _odr_module
 
 
 @dataclass(frozen=True)
@@ -70,11 +88,7 @@ def odr_fit(
     sy = noise_scale(y) if rtnt_noise is None else float(rtnt_noise)
     if not (sx > 0 and sy > 0):
         raise FitWindowError(f"orthogonal Gregory fit needs positive noise scales; got ΔT {sx}, ΔN {sy}")
-    with warnings.catch_warnings():
-        # scipy >= 1.17 announces the module's move to a separate package; it still works here
-        warnings.simplefilter("ignore", DeprecationWarning)
-        from scipy import odr
-
+    odr = _odr()
     start = _ols(x, y)
     result = odr.ODR(
         odr.RealData(x, y, sx=sx, sy=sy),

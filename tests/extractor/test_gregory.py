@@ -147,6 +147,20 @@ def test_odr_matches_scipy_odr_called_directly():
     assert fit.ecs_eff == pytest.approx(-fit.erf / (2 * fit.feedback), rel=1e-12)
 
 
+def test_odr_fits_in_threads_equal_serial_fits_and_leave_the_warning_filters_alone():
+    # common practice, no source: fits run in a batch's threads must give the serial numbers, and the one-time
+    # import of scipy.odr (which silences its DeprecationWarning) must not leave the process's filters changed
+    from concurrent.futures import ThreadPoolExecutor
+
+    data = [_synthetic(noise_sd=0.6, seed=seed) for seed in range(8)]
+    filters = list(warnings.filters)
+    with ThreadPoolExecutor(4) as pool:
+        threaded = list(pool.map(lambda d: odr_fit(d[0], d[1], (1, 150), tas_noise=0.12, rtnt_noise=0.6), data))
+    assert list(warnings.filters) == filters
+    serial = [odr_fit(dT, dN, (1, 150), tas_noise=0.12, rtnt_noise=0.6) for dT, dN in data]
+    assert threaded == serial
+
+
 def test_odr_corrects_regression_dilution():
     # Errors in ΔT bias the OLS slope towards zero by var(T)/(var(T)+σ²); orthogonal regression with
     # the right error ratio does not (Deming regression; Fuller 1987, Measurement Error Models, from memory).

@@ -48,6 +48,9 @@ Then each model fitted on a worker in the batch's graph, classic headers read by
 work cut down (same command, load 1.6–2.0): default 0.60× / 0.94× / (3.6×), `processes` 0.84× / 1.11× / (2.3×),
 marginal CPU 4.4 / 5.8 / 1.6 and 4.7 / 6.8 / 0.9 s against the floor's 6.2 / 6.3 / 0.8; the classic floor's
 marginal wall time was 0.2 s (−0.1–0.9), noise around zero, so its ratios mean nothing; peak RSS 208 / 211 / 210 MiB.
+The same code on an idle machine (load 0.05 before, 1.0–2.2 during; `--repeat 5 --only floor1,floorN,default,processes`,
+the layouts in two calls): default 1.03× / 0.90× / 0.76×, `processes` 0.89× / 0.60× / 0.79×, marginal CPU
+5.9 / 6.7 / 2.0 and 5.4 / 5.7 / 1.8 s against the floor's 6.2 / 7.4 / 1.9 (floor marginal wall 3.2 / 3.7 / 0.7 s).
 """
 from __future__ import annotations
 

@@ -51,6 +51,9 @@ marginal wall time was 0.2 s (−0.1–0.9), noise around zero, so its ratios me
 The same code on an idle machine (load 0.05 before, 1.0–2.2 during; `--repeat 5 --only floor1,floorN,default,processes`,
 the layouts in two calls): default 1.03× / 0.90× / 0.76×, `processes` 0.89× / 0.60× / 0.79×, marginal CPU
 5.9 / 6.7 / 2.0 and 5.4 / 5.7 / 1.8 s against the floor's 6.2 / 7.4 / 1.9 (floor marginal wall 3.2 / 3.7 / 0.7 s).
+A second call (`--repeat 3 --only floorN,default,slurm`, load 1.1–2.4): default 0.69× / 0.91× / 1.90×, slurm (one
+job of 2 workers) 0.93× / 1.37× / 1.83× (floor marginal wall 3.0 / 3.5 / 0.4 s: the classic ratio is noise); five
+pairs with 1 step per chunk: `processes` 0.95×, slurm 0.96× (floor 3.8 s).
 """
 from __future__ import annotations
 

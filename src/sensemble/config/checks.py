@@ -127,7 +127,7 @@ def _check_pathways(config: BatchConfig, source: str, check_paths: bool) -> None
     if not items:
         return
     from sensemble.emulator.errors import EmulatorInputError
-    from sensemble.emulator.scenario_batch import pathway_specs
+    from sensemble.emulator.pathway_specs import pathway_specs  # light: not the emulator itself
 
     if not all(isinstance(item, dict) for item in items):
         raise ConfigError(f"{source}: [[emulator.pathways]] entries must be tables")

@@ -360,12 +360,12 @@ def test_every_key_of_a_shipped_config_is_commented(name):
 def test_demo_config_leaves_archive_and_output_to_the_demo_command():
     config = load_config(CONFIGS / "demo.toml")  # nothing to check: no paths in it
     assert config.archive.root is None and config.output.dir is None
-    assert config.compute.kind == "threads"
+    assert config.compute.kind == "auto"
 
 
 def test_shipped_configs_choose_their_compute():
     kinds = {name: load_config(CONFIGS / name, check_paths=False).compute.kind for name in SHIPPED}
-    assert kinds == {"demo.toml": "threads", "workstation.toml": "processes", "slurm.toml": "slurm", "pbs.toml": "pbs"}
+    assert kinds == {"demo.toml": "auto", "workstation.toml": "processes", "slurm.toml": "slurm", "pbs.toml": "pbs"}
 
 
 def test_shipped_config_is_found_by_name():

@@ -5,6 +5,7 @@ import cftime
 import numpy as np
 import xarray as xr
 
+from sensemble.contract.cf import with_cell_method
 from sensemble.contract.flags import PARTIAL_YEARS
 
 from .errors import ArchiveError
@@ -108,9 +109,8 @@ def annual_means(ds: xr.Dataset, start: str = "january") -> xr.Dataset:
     for name in variables:
         da = ds[name].transpose("time", ...)
         values = np.asarray(da.values, dtype=np.float64)
-        attrs = dict(da.attrs)
-        attrs["cell_methods"] = f"{str(da.attrs.get('cell_methods', '')).strip()} time: mean".strip()
-        annual[name] = xr.Variable(("year",) + da.dims[1:], _weighted_year_means(values, weights, rows), attrs)
+        annual[name] = xr.Variable(("year",) + da.dims[1:], _weighted_year_means(values, weights, rows),
+                                   with_cell_method(da.attrs, "time: mean"))
     # one Dataset built at once: adding the variables one by one cost more than computing them
     out = xr.Dataset(annual, coords={"year": ("year", kept, {"long_name": "calendar year", "calendar": calendar})})
 

@@ -6,6 +6,7 @@ import netCDF4
 import numpy as np
 import xarray as xr
 
+from sensemble.contract.cf import with_cell_method
 from sensemble.contract.flags import COS_WEIGHTS, LON_BOUNDS_DERIVED
 
 from .errors import ArchiveError
@@ -235,9 +236,7 @@ def labelled_mean(data, da: xr.DataArray, dims) -> xr.DataArray:
     dims, its attributes, and ``"area: mean"`` appended to ``cell_methods``."""
     mean = xr.DataArray(data, dims=tuple(dims), coords={c: v for c, v in da.coords.items()
                                                          if set(v.dims) <= set(dims)}, name=da.name)
-    mean.attrs = dict(da.attrs)
-    methods = str(da.attrs.get("cell_methods", "")).strip()
-    mean.attrs["cell_methods"] = f"{methods} area: mean".strip()
+    mean.attrs = with_cell_method(da.attrs, "area: mean")
     return mean
 
 

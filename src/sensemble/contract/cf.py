@@ -10,8 +10,8 @@ from __future__ import annotations
 
 import time
 
-__all__ = ["CF_VERSION", "CONVENTIONS", "history_line", "anomaly_attributes", "ANOMALY_STANDARD_NAMES",
-           "TEMPERATURE_ON_SCALE", "TEMPERATURE_DIFFERENCE"]
+__all__ = ["CF_VERSION", "CONVENTIONS", "history_line", "anomaly_attributes", "with_cell_method",
+           "ANOMALY_STANDARD_NAMES", "TEMPERATURE_ON_SCALE", "TEMPERATURE_DIFFERENCE"]
 
 CF_VERSION = "1.11"
 CONVENTIONS = f"CF-{CF_VERSION}"
@@ -25,6 +25,18 @@ TEMPERATURE_DIFFERENCE = "temperature: difference"
 def history_line(action: str) -> str:
     """One `history` line (CF §2.6.2): "<UTC time stamp> <action>"."""
     return f"{time.strftime('%Y-%m-%dT%H:%M:%SZ', time.gmtime())} {action}"
+
+
+def with_cell_method(attrs, method: str) -> dict:
+    """A copy of `attrs` with `method` (e.g. "area: mean") appended to `cell_methods` (CF §7.3: the methods in
+    the order they were applied).
+
+    >>> with_cell_method({"units": "K", "cell_methods": "time: mean"}, "area: mean")["cell_methods"]
+    'time: mean area: mean'
+    """
+    out = dict(attrs)
+    out["cell_methods"] = f"{str(out.get('cell_methods', '')).strip()} {method}".strip()
+    return out
 
 
 # CF standard names of the anomaly of a quantity, where the CF standard name table has one (checked against the

@@ -168,7 +168,7 @@ class Fitted:
 
 
 def fit_unit(unit: Unit, series: dict, settings: ExtractionSettings, figures: bool) -> Fitted:
-    """A unit's science and, with `figures`, its Gregory plot drawn (matplotlib costs 0.35 s a plot: drawn on the
+    """A unit's science and, with `figures`, its Gregory plot drawn (matplotlib costs 0.25–0.35 s a plot: drawn on the
     worker, written by the main process)."""
     science = unit_science(unit, series, settings)
     png = None

@@ -173,7 +173,7 @@ def reduce_and_fit(runs: list[RunFiles], required: tuple[str, ...], progress: bo
 
     A unit whose runs all take the fast path is fitted in the graph too (`fit_in_task`, on a worker, as soon as its
     runs are joined): the fits of a batch then run on every core, beside the reading, instead of one after another
-    in the main process once everything is read (0.26 s per model and member, a floor on the wall time of any batch
+    in the main process once everything is read (0.1–0.26 s per model and member, a floor on the wall time of any batch
     however many cores read it). A unit with a run the fast path defers is left to the caller (not in `fitted`),
     with its runs' series in `series`.
     """
